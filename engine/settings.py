@@ -50,6 +50,7 @@ class Settings:
     max_pairs_samples: int = 200_000
     lyapunov_steps: Optional[int] = None
     surrogates: int = 39
+    surrogate_max_samples: int = 20_000
     surrogate_kind: str = "iaaft"
     surrogate_statistic: str = "prediction_error"
     recurrence_rate: float = 0.05
@@ -89,6 +90,7 @@ class Settings:
         positive_int("max_pairs_samples", self.max_pairs_samples, minimum=100)
         positive_int("lyapunov_steps", self.lyapunov_steps, minimum=2, allow_none=True)
         positive_int("surrogates", self.surrogates, minimum=0)
+        positive_int("surrogate_max_samples", self.surrogate_max_samples, minimum=100)
         positive_int("recurrence_max_points", self.recurrence_max_points, minimum=10)
         positive_int("min_line", self.min_line, minimum=2)
         positive_int("seed", self.seed, minimum=0)

@@ -1,0 +1,202 @@
+"""The standard analysis: from a Recording to delay, dimension, invariants and a verdict.
+
+``run_standard_analysis`` chains the pure steps of the data flow::
+
+    prepare -> estimate (delay, dimension) -> Theiler window -> correlation sums, D2, K2
+    -> box counts -> Lyapunov divergence -> surrogate test -> recurrence -> summarise
+
+Each step is a pure function of (input, settings); the result is an
+:class:`Analysis` that a bundle stores and reads back.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Optional
+
+import xarray as xr
+
+from . import boxcount, correlation, lyapunov, recurrence, surrogates, theiler
+from .diagnostics import chosen_delay, chosen_dimension, estimate
+from .errors import LagspaceError
+from .loading import load_recording
+from .preparation import prepare
+from .progress import Stage
+from .recording import json_attr, sampling_interval, signal, time_unit
+from .settings import Settings
+from .summary import summarise
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Everything one analysis produced. ``recording`` is the file as loaded;
+    ``prepared`` is what the methods saw (derived from it and ``settings``)."""
+
+    recording: xr.Dataset
+    settings: Settings
+    prepared: xr.Dataset
+    diagnostics: xr.Dataset
+    results: Optional[xr.Dataset]
+    summary: dict
+
+
+def estimate_parameters(recording: xr.Dataset, settings: Settings, progress=None, cancel=None) -> Analysis:
+    """Prepare the recording and estimate delay and dimension only (no invariants)."""
+    prepared = prepare(recording, settings)
+    diagnostics = estimate(prepared, settings, progress=progress, cancel=cancel)
+    return Analysis(recording, settings, prepared, diagnostics, None,
+                    summarise(prepared, diagnostics, None, settings))
+
+
+def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings,
+               progress=None, cancel=None) -> xr.Dataset:
+    """The Results dataset: every invariant at the chosen delay and dimension."""
+    stage = Stage(progress, cancel)
+    x = signal(prepared)
+    dt, unit = sampling_interval(prepared), time_unit(prepared)
+    tau, m = chosen_delay(diagnostics), chosen_dimension(diagnostics)
+    acf_times = json_attr(diagnostics, "autocorrelation_times", {})
+    parts, estimates = [], {}
+
+    stage("space-time separation", 0.0)
+    st = theiler.space_time_separation(x, delay=tau, dimension=m, seed=settings.seed)
+    theiler_choice = theiler.suggest_theiler(st, autocorrelation_time=acf_times.get("one_over_e"))
+    if settings.theiler is not None:
+        theiler_choice = {"value": int(settings.theiler), "method": "set by the user",
+                          "reason": f"set by the user; the space-time separation plot suggested "
+                                    f"{theiler_choice['value']} samples", "suggested": theiler_choice}
+    w = int(theiler_choice["value"])
+    estimates["theiler_window"] = theiler_choice
+    parts.append(st)
+
+    stage("correlation sums", 0.05)
+    max_dim = max(settings.max_dimension, m + 2)
+    cs = correlation.correlation_sums(
+        x, delay=tau, max_dimension=max_dim, theiler=w, n_radii=settings.radii,
+        reference_points=settings.reference_points, seed=settings.seed,
+        progress=stage.sub(0.05, 0.35), cancel=cancel,
+    )
+    d2 = correlation.correlation_dimension(cs, m)
+    estimates["correlation_dimension"] = d2
+    estimates["correlation_dimension_ml"] = correlation.takens_estimator(cs, m, r_max=_upper(d2))
+    estimates["correlation_entropy"] = correlation.correlation_entropy(cs, d2.get("scaling_range"), dt)
+    parts.append(cs)
+
+    stage("box counting", 0.35)
+    bc = boxcount.box_counts(x, delay=tau, dimension=m)
+    estimates["capacity_dimension"] = boxcount.capacity_dimension(bc)
+    parts.append(bc)
+
+    stage("divergence of neighbours", 0.4)
+    dims = [d for d in (m - 1, m, m + 1) if d >= 1]
+    div = lyapunov.divergence_rosenstein(
+        x, delay=tau, dimensions=dims, theiler=w, steps=_steps(settings, tau, x.size),
+        progress=stage.sub(0.4, 0.55), cancel=cancel,
+    )
+    kantz = lyapunov.divergence_kantz(x, delay=tau, dimensions=dims, theiler=w, steps=_steps(settings, tau, x.size))
+    estimates["largest_lyapunov_exponent"] = lyapunov.largest_lyapunov(div, m, dt, unit)
+    estimates["largest_lyapunov_exponent_kantz"] = lyapunov.largest_lyapunov(
+        kantz.rename({"divergence_kantz": "divergence"}), m, dt, unit)
+    parts += [div, kantz]
+
+    stage("surrogate data test", 0.6)
+    if settings.surrogates > 0:
+        segment = x[: settings.surrogate_max_samples]
+        sur = surrogates.surrogate_test(
+            segment, kind=settings.surrogate_kind, statistic=settings.surrogate_statistic,
+            count=settings.surrogates, seed=settings.seed, delay=tau, dimension=m, theiler=w,
+            sided="two" if settings.surrogates >= 39 else "one",
+            progress=stage.sub(0.6, 0.9), cancel=cancel,
+        )
+        test = json_attr(sur, "surrogate_test")
+        test["samples_used"] = int(segment.size)
+        estimates["surrogate_test"] = test
+        parts.append(sur)
+    else:
+        estimates["surrogate_test"] = {"kind": None, "statistic": None, "surrogates": 0, "p_value": None,
+                                       "rejects_linear_null": None, "reason": "surrogate test skipped (0 surrogates)"}
+
+    stage("recurrence quantification", 0.9)
+    rq = recurrence.recurrence_quantification(
+        x, delay=tau, dimension=m, rate=settings.recurrence_rate, max_points=settings.recurrence_max_points,
+        theiler=w, min_line=settings.min_line, seed=settings.seed,
+    )
+    estimates["recurrence"] = json_attr(rq, "recurrence")
+    parts.append(rq)
+
+    results = xr.merge([_plain(p) for p in parts], join="outer", combine_attrs="drop")
+    results.attrs = {key: json.dumps(value) for key, value in estimates.items()}
+    results.attrs["delay"] = tau
+    results.attrs["embedding_dimension"] = m
+    stage("invariants done", 1.0)
+    return results
+
+
+def _plain(ds: xr.Dataset) -> xr.Dataset:
+    out = ds.copy()
+    out.attrs = {}
+    return out
+
+
+def _upper(d2: dict):
+    rng = d2.get("scaling_range")
+    return rng[1] if rng else None
+
+
+def _steps(settings: Settings, tau: int, n: int) -> int:
+    """Divergence steps: the user's, else 30 delays, between 30 and min(1000, N/10)."""
+    if settings.lyapunov_steps is not None:
+        return int(settings.lyapunov_steps)
+    return int(max(10, min(max(30, 30 * tau), 1000, n // 10)))
+
+
+def run_standard_analysis(recording: xr.Dataset, settings: Settings | None = None,
+                          progress=None, cancel=None) -> Analysis:
+    """Prepare, estimate delay and dimension, compute every invariant, and summarise."""
+    settings = settings or Settings()
+    stage = Stage(progress, cancel)
+    prepared = prepare(recording, settings)
+    diagnostics = estimate(prepared, settings, progress=stage.sub(0.0, 0.25), cancel=cancel)
+    results = invariants(prepared, diagnostics, settings, progress=stage.sub(0.25, 1.0), cancel=cancel)
+    return Analysis(recording, settings, prepared, diagnostics, results,
+                    summarise(prepared, diagnostics, results, settings))
+
+
+def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> Analysis:
+    """Recompute the estimates for a user-chosen scaling range and/or divergence fit range."""
+    if analysis.results is None:
+        raise LagspaceError("run the analysis before adjusting its fit ranges")
+    res = analysis.results.copy()
+    res.attrs = dict(analysis.results.attrs)
+    m = int(res.attrs["embedding_dimension"])
+    dt, unit = sampling_interval(analysis.prepared), time_unit(analysis.prepared)
+    if scaling_range is not None:
+        d2 = correlation.correlation_dimension(res, m, scaling_range=tuple(scaling_range))
+        res.attrs["correlation_dimension"] = json.dumps(d2)
+        res.attrs["correlation_dimension_ml"] = json.dumps(correlation.takens_estimator(res, m, r_max=_upper(d2)))
+        res.attrs["correlation_entropy"] = json.dumps(correlation.correlation_entropy(res, d2.get("scaling_range"), dt))
+    if divergence_range is not None:
+        fit = lyapunov.fit_divergence(res, m, tuple(divergence_range), dt, unit)
+        res.attrs["largest_lyapunov_exponent"] = json.dumps(fit)
+    summary = summarise(analysis.prepared, analysis.diagnostics, res, analysis.settings)
+    return replace(analysis, results=res, summary=summary)
+
+
+def analyse_file(path: Path, args=None, quick: bool = False, progress=None, cancel=None) -> Analysis:
+    """Load a recording or a bundle from ``path`` and analyse it (the CLI and batch use this)."""
+    from .bundle import is_bundle, read_bundle
+    from .cli import settings_from_args
+
+    path = Path(path)
+    if is_bundle(path):
+        previous = read_bundle(path)
+        recording = previous.recording
+        settings = settings_from_args(args, previous.settings) if args is not None else previous.settings
+    else:
+        settings = settings_from_args(args) if args is not None else Settings()
+        recording = load_recording(path, variable=settings.variable, sampling_interval=settings.sampling_interval)
+    if quick:
+        return estimate_parameters(recording, settings, progress=progress, cancel=cancel)
+    return run_standard_analysis(recording, settings, progress=progress, cancel=cancel)

@@ -1,0 +1,208 @@
+"""Bundles: one zip that holds an analysis and reproduces it.
+
+Members (and nothing else): ``manifest.json`` (format version, software versions,
+SHA-256 and size of every other member), ``recording.nc`` (the recording as
+loaded), ``diagnostics.nc``, ``results.nc`` (NetCDF4), ``settings.json``,
+``summary.json`` and ``report.html`` (self-contained).
+
+Writing is atomic (a temporary file in the target folder, then ``os.replace``).
+Reading never trusts the archive: member names must be exactly the known ones,
+sizes are capped before anything is inflated, and every hash must match.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import os
+import platform
+import tempfile
+import zipfile
+from pathlib import Path
+
+import xarray as xr
+
+from . import __version__
+from .errors import BundleError, LagspaceError
+from .preparation import prepare
+from .settings import Settings
+
+FORMAT = "lagspace-bundle"
+FORMAT_VERSION = 1
+DATA_MEMBERS = ("recording.nc", "diagnostics.nc", "results.nc", "settings.json", "summary.json", "report.html")
+OPTIONAL_MEMBERS = ("results.nc",)
+MAX_INFLATED = 2_000_000_000  # bytes, all members together
+MAX_RATIO = 200  # inflated / compressed, per member
+
+
+def _software() -> dict:
+    import numba
+    import numpy
+    import scipy
+
+    return {"lagspace": __version__, "python": platform.python_version(), "numpy": numpy.__version__,
+            "scipy": scipy.__version__, "xarray": xr.__version__, "numba": numba.__version__}
+
+
+def _netcdf_bytes(ds: xr.Dataset) -> bytes:
+    return bytes(ds.to_netcdf(engine="h5netcdf"))
+
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def bundle_members(analysis) -> dict:
+    """The bundle's members as ``{name: bytes}`` (without the manifest)."""
+    from .report import report_html
+
+    members = {
+        "recording.nc": _netcdf_bytes(analysis.recording),
+        "diagnostics.nc": _netcdf_bytes(analysis.diagnostics),
+        "settings.json": analysis.settings.to_json().encode(),
+        "summary.json": json.dumps(analysis.summary, indent=2, allow_nan=False).encode(),
+        "report.html": report_html(analysis).encode(),
+    }
+    if analysis.results is not None:
+        members["results.nc"] = _netcdf_bytes(analysis.results)
+    return members
+
+
+def bundle_bytes(analysis) -> bytes:
+    """The whole bundle as bytes (what the dashboard offers for download)."""
+    members = bundle_members(analysis)
+    manifest = {
+        "format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "software": _software(),
+        "seed": analysis.settings.seed,
+        "members": {name: {"sha256": _sha256(data), "bytes": len(data)} for name, data in members.items()},
+    }
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as zf:
+        zf.writestr("manifest.json", json.dumps(manifest, indent=2))
+        for name, data in members.items():
+            zf.writestr(name, data)
+    return buf.getvalue()
+
+
+def write_bundle(analysis, path) -> Path:
+    """Write the bundle to ``path`` atomically: either the whole zip appears, or nothing."""
+    path = Path(path)
+    if path.suffix.lower() != ".zip":
+        raise LagspaceError(f"a bundle is a .zip file; got {path.name!r}, try {path.with_suffix('.zip').name!r}")
+    data = bundle_bytes(analysis)
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise LagspaceError(f"folder {str(folder)!r} does not exist; create it or choose another place for the bundle")
+    fd, tmp = tempfile.mkstemp(prefix=".lagspace-", suffix=".zip.part", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+    return path
+
+
+def is_bundle(path) -> bool:
+    """True when ``path`` is a zip whose members include a lagspace manifest."""
+    try:
+        with zipfile.ZipFile(path) as zf:
+            return "manifest.json" in zf.namelist()
+    except (zipfile.BadZipFile, OSError):
+        return False
+
+
+def _read_members(source, max_inflated: int) -> dict:
+    try:
+        zf = zipfile.ZipFile(io.BytesIO(source) if isinstance(source, (bytes, bytearray)) else source)
+    except (zipfile.BadZipFile, OSError) as exc:
+        raise BundleError(f"not a readable zip file ({exc}); open a bundle downloaded from lagspace") from None
+    with zf:
+        infos = zf.infolist()
+        allowed = set(DATA_MEMBERS) | {"manifest.json"}
+        for info in infos:
+            if info.filename not in allowed:
+                raise BundleError(f"bundle member {info.filename!r} is not one lagspace writes; "
+                                  f"a bundle holds only {', '.join(sorted(allowed))}")
+        if len({i.filename for i in infos}) != len(infos):
+            raise BundleError("bundle lists a member twice; open a bundle downloaded from lagspace")
+        total = sum(i.file_size for i in infos)
+        if total > max_inflated:
+            raise BundleError(f"bundle would inflate to {total / 1e6:.0f} MB, over the limit of "
+                              f"{max_inflated / 1e6:.0f} MB; open a smaller bundle or raise the limit")
+        for info in infos:
+            if info.file_size > MAX_RATIO * max(info.compress_size, 1) + 1_000_000:
+                raise BundleError(f"bundle member {info.filename!r} inflates {info.file_size / max(info.compress_size, 1):.0f}"
+                                  " times its size, which no lagspace bundle does; it may be a zip bomb")
+        out = {}
+        for info in infos:
+            with zf.open(info) as fh:
+                data = fh.read(info.file_size + 1)
+            if len(data) != info.file_size:
+                raise BundleError(f"bundle member {info.filename!r} is larger than its header says")
+            out[info.filename] = data
+    return out
+
+
+def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
+    """Read a bundle (path or bytes) back into an :class:`engine.analysis.Analysis`.
+
+    Raises :class:`BundleError` for anything malformed, tampered with or unsafe.
+    """
+    from .analysis import Analysis
+    from .summary import summarise
+
+    members = _read_members(source, max_inflated)
+    if "manifest.json" not in members:
+        raise BundleError("bundle has no manifest.json; open a bundle downloaded from lagspace")
+    try:
+        manifest = json.loads(members["manifest.json"])
+    except (json.JSONDecodeError, UnicodeDecodeError):
+        raise BundleError("bundle manifest is not valid JSON; the file is damaged") from None
+    if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
+        raise BundleError("bundle manifest does not describe a lagspace bundle")
+    if manifest.get("format_version") != FORMAT_VERSION:
+        raise BundleError(f"bundle format version {manifest.get('format_version')!r} is not supported "
+                          f"(this lagspace reads version {FORMAT_VERSION})")
+    listed = manifest.get("members")
+    if not isinstance(listed, dict):
+        raise BundleError("bundle manifest lists no members; the file is damaged")
+    required = set(DATA_MEMBERS) - set(OPTIONAL_MEMBERS)
+    missing = sorted((required | set(listed)) - set(members))
+    if missing:
+        raise BundleError(f"bundle lacks {', '.join(missing)}; the file is incomplete")
+    for name in members:
+        if name == "manifest.json":
+            continue
+        entry = listed.get(name)
+        if not isinstance(entry, dict) or entry.get("sha256") != _sha256(members[name]):
+            raise BundleError(f"bundle member {name} does not match its SHA-256 in the manifest; "
+                              "the bundle was changed or damaged")
+    try:
+        settings = Settings.from_json(members["settings.json"].decode())
+    except (LagspaceError, UnicodeDecodeError) as exc:
+        raise BundleError(f"bundle settings cannot be read: {exc}") from None
+    recording = _open_netcdf(members["recording.nc"], "recording.nc")
+    diagnostics = _open_netcdf(members["diagnostics.nc"], "diagnostics.nc")
+    results = _open_netcdf(members["results.nc"], "results.nc") if "results.nc" in members else None
+    try:
+        prepared = prepare(recording, settings)
+        summary = summarise(prepared, diagnostics, results, settings)
+    except (LagspaceError, KeyError, TypeError, ValueError) as exc:
+        raise BundleError(f"bundle contents are inconsistent ({exc}); the file is damaged") from None
+    return Analysis(recording, settings, prepared, diagnostics, results, summary)
+
+
+def _open_netcdf(data: bytes, name: str) -> xr.Dataset:
+    try:
+        with xr.open_dataset(io.BytesIO(data), engine="h5netcdf") as ds:
+            return ds.load()
+    except Exception as exc:  # h5py raises many types for damaged files
+        raise BundleError(f"bundle member {name} is not readable NetCDF ({type(exc).__name__}); the file is damaged") from None

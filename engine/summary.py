@@ -1,0 +1,190 @@
+"""The Summary: a plain dict (the JSON of ``lagspace analyze --json``) read off the datasets.
+
+``summarise`` reads only the JSON attributes that the methods stored on their
+datasets, so a bundle read back gives exactly the same Summary. The verdict is a
+sentence about what the evidence supports and what it does not: evidence, never
+proof.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Optional
+
+import xarray as xr
+
+from . import __version__
+from .recording import json_attr, sampling_interval, time_unit, variable_name
+from .settings import Settings
+
+CAUTION = ("lagspace is a research tool, not a diagnostic or safety device; for clinical signals or "
+           "machinery safety, defer to licensed practice and local codes.")
+
+
+def clean(value):
+    """Make a value JSON-safe: NaN and inf become None, numpy scalars plain numbers."""
+    if isinstance(value, dict):
+        return {str(k): clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _input(prepared: xr.Dataset) -> dict:
+    name = variable_name(prepared)
+    checks = json_attr(prepared, "checks", [])
+    return {
+        "file": prepared.attrs.get("source", ""),
+        "sha256": prepared.attrs.get("sha256", ""),
+        "variable": name,
+        "units": prepared[name].attrs.get("units", "1"),
+        "samples": int(prepared.sizes["time"]),
+        "sampling_interval": sampling_interval(prepared),
+        "time_unit": time_unit(prepared),
+        "preparation": json_attr(prepared, "preparation", []),
+        "checks": [{"code": c.get("code"), "severity": c.get("severity"), "message": c.get("message")}
+                   for c in checks],
+    }
+
+
+def _warnings(prepared: xr.Dataset, diagnostics: xr.Dataset, estimates: dict) -> list:
+    out = []
+    for c in json_attr(prepared, "checks", []):
+        if c.get("severity") == "warn":
+            out.append(f"{c['message']} Fix: {c['fix']}" if c.get("fix") else c["message"])
+    out += json_attr(diagnostics, "warnings", [])
+    for key in sorted(estimates):
+        est = estimates[key]
+        if isinstance(est, dict):
+            out += [str(w) for w in est.get("warnings", [])]
+    seen = set()
+    return [w for w in out if not (w in seen or seen.add(w))]
+
+
+def summarise(prepared: xr.Dataset, diagnostics: xr.Dataset, results: Optional[xr.Dataset],
+              settings: Settings) -> dict:
+    """The Summary of one analysis (``results=None`` after estimation only)."""
+    dt, unit = sampling_interval(prepared), time_unit(prepared)
+    delay = json_attr(diagnostics, "delay")
+    delay = {"samples": delay["samples"], "time": delay["samples"] * dt, "time_unit": unit,
+             "method": delay["method"], "reason": delay["reason"]}
+    dim = json_attr(diagnostics, "embedding_dimension")
+    out = {
+        "software": {"name": "lagspace", "version": __version__},
+        "input": _input(prepared),
+        "seed": settings.seed,
+        "delay": delay,
+        "embedding_dimension": {"value": dim["value"], "method": dim["method"], "reason": dim["reason"],
+                                "looks_stochastic": bool(dim.get("looks_stochastic", False))},
+    }
+    estimates = {}
+    if results is not None:
+        estimates = {k: json_attr(results, k) for k in results.attrs if isinstance(results.attrs[k], str)}
+        w = estimates.get("theiler_window", {})
+        out["theiler_window"] = {"samples": w.get("value"), "time": _times(w.get("value"), dt), "time_unit": unit,
+                                 "method": w.get("method"), "reason": w.get("reason")}
+        d2 = dict(estimates.get("correlation_dimension", {}))
+        d2["maximum_likelihood"] = estimates.get("correlation_dimension_ml")
+        out["correlation_dimension"] = d2
+        out["correlation_entropy"] = estimates.get("correlation_entropy")
+        out["capacity_dimension"] = estimates.get("capacity_dimension")
+        lle = dict(estimates.get("largest_lyapunov_exponent", {}))
+        lle["kantz"] = estimates.get("largest_lyapunov_exponent_kantz")
+        out["largest_lyapunov_exponent"] = lle
+        out["surrogate_test"] = estimates.get("surrogate_test")
+        out["recurrence"] = estimates.get("recurrence")
+    out["warnings"] = _warnings(prepared, diagnostics, estimates)
+    out["verdict"] = verdict(out)
+    out["caution"] = CAUTION
+    return clean(out)
+
+
+def _times(samples, dt):
+    return None if samples is None else samples * dt
+
+
+def _fmt(value, unc=None, digits=3):
+    if value is None:
+        return "n/a"
+    text = f"{value:.{digits}g}"
+    return f"{text} ± {unc:.2g}" if unc is not None else text
+
+
+def verdict(summary: dict) -> str:
+    """One or two sentences on what the evidence supports, and what it does not."""
+    if "correlation_dimension" not in summary:
+        dim = summary["embedding_dimension"]
+        return (f"Delay {summary['delay']['samples']} samples and embedding dimension {dim['value']} are suggested; "
+                "run the invariants and the surrogate test before drawing any conclusion about the dynamics.")
+    test = summary.get("surrogate_test") or {}
+    d2 = summary.get("correlation_dimension") or {}
+    lle = summary.get("largest_lyapunov_exponent") or {}
+    unit = summary["input"]["time_unit"]
+    rejects = test.get("rejects_linear_null")
+    parts = []
+    if rejects is None:
+        parts.append("No surrogate test was run, so nothing here separates the data from linear noise")
+    elif rejects:
+        parts.append(f"The data differ from linear Gaussian noise passed through a static transform "
+                     f"({test.get('kind', '').upper()} surrogate test on {test.get('statistic')}, p = {_fmt(test.get('p_value'), digits=2)})")
+    else:
+        parts.append(f"The data cannot be told apart from linear Gaussian noise passed through a static transform "
+                     f"({test.get('kind', '').upper()} surrogate test, p = {_fmt(test.get('p_value'), digits=2)}), "
+                     "so the invariants below should not be read as evidence of low-dimensional chaos")
+    if d2.get("value") is not None:
+        sat = "saturates" if d2.get("saturates") else "does not clearly saturate"
+        parts.append(f"the correlation dimension {sat} at D2 = {_fmt(d2['value'], d2.get('uncertainty'))}")
+    else:
+        parts.append(f"no correlation dimension could be measured ({d2.get('reason', 'no scaling range')})")
+    lam, dlam = lle.get("per_time_unit"), lle.get("uncertainty")
+    if lam is not None:
+        if dlam is not None and abs(lam) <= 2 * dlam:
+            parts.append(f"the largest Lyapunov exponent ({_fmt(lam, dlam)} per {unit}) is consistent with zero")
+        elif lam > 0:
+            parts.append(f"the largest Lyapunov exponent is positive ({_fmt(lam, dlam)} per {unit})")
+        else:
+            parts.append(f"the largest Lyapunov exponent is negative ({_fmt(lam, dlam)} per {unit})")
+    sentence = "; ".join(parts) + "."
+    positive = lam is not None and lam > 0 and (dlam is None or lam > 2 * dlam)
+    if rejects and d2.get("saturates") and positive:
+        sentence += (" Together this is consistent with low-dimensional deterministic chaos; it is evidence, "
+                     "not proof, and noise, non-stationarity or too short a recording can mimic it.")
+    elif rejects and d2.get("value") is not None and not positive:
+        sentence += (" Together this points to nonlinear but not clearly chaotic dynamics (for example a noisy "
+                     "periodic or quasi-periodic motion); evidence, not proof.")
+    else:
+        sentence += " The evidence does not support a claim of low-dimensional chaos."
+    return sentence
+
+
+def format_text(summary: dict) -> str:
+    """A short human-readable report of a Summary, for the terminal."""
+    inp = summary["input"]
+    unit = inp["time_unit"]
+    lines = [
+        f"file            {inp['file']}  ({inp['variable']}, {inp['samples']} samples every "
+        f"{inp['sampling_interval']:g} {unit})",
+        f"delay           {summary['delay']['samples']} samples = {summary['delay']['time']:g} {unit}"
+        f"  -- {summary['delay']['reason']}",
+        f"dimension       {summary['embedding_dimension']['value']}  -- {summary['embedding_dimension']['reason']}",
+    ]
+    if "correlation_dimension" in summary:
+        d2 = summary["correlation_dimension"] or {}
+        lle = summary["largest_lyapunov_exponent"] or {}
+        cap = summary.get("capacity_dimension") or {}
+        test = summary.get("surrogate_test") or {}
+        lines += [
+            f"Theiler window  {summary['theiler_window']['samples']} samples",
+            f"D2              {_fmt(d2.get('value'), d2.get('uncertainty'))}",
+            f"capacity dim.   {_fmt(cap.get('value'), cap.get('uncertainty'))}",
+            f"largest exp.    {_fmt(lle.get('per_time_unit'), lle.get('uncertainty'))} per {unit}",
+            f"surrogates      p = {_fmt(test.get('p_value'), digits=2)}, rejects linear null: "
+            f"{test.get('rejects_linear_null')}",
+        ]
+    lines += [f"warning         {w}" for w in summary["warnings"]]
+    lines += [f"verdict         {summary['verdict']}", f"caution         {summary['caution']}"]
+    return "\n".join(lines)
