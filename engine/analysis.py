@@ -184,18 +184,19 @@ def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> A
     return replace(analysis, results=res, summary=summary)
 
 
-def analyse_file(path: Path, args=None, quick: bool = False, progress=None, cancel=None) -> Analysis:
-    """Load a recording or a bundle from ``path`` and analyse it (the CLI and batch use this)."""
-    from .bundle import is_bundle, read_bundle
-    from .cli import settings_from_args
+def analyse_file(path, overrides: dict | None = None, quick: bool = False, progress=None, cancel=None) -> Analysis:
+    """Load a recording or a bundle from ``path`` and analyse it (the CLI and batch use this).
 
-    path = Path(path)
+    ``overrides`` are settings laid over the defaults, or over a bundle's own settings.
+    """
+    from .bundle import is_bundle, read_bundle
+
+    path, overrides = Path(path), dict(overrides or {})
     if is_bundle(path):
         previous = read_bundle(path)
-        recording = previous.recording
-        settings = settings_from_args(args, previous.settings) if args is not None else previous.settings
+        recording, settings = previous.recording, previous.settings.replace(**overrides)
     else:
-        settings = settings_from_args(args) if args is not None else Settings()
+        settings = Settings(**overrides)
         recording = load_recording(path, variable=settings.variable, sampling_interval=settings.sampling_interval)
     if quick:
         return estimate_parameters(recording, settings, progress=progress, cancel=cancel)

@@ -88,12 +88,16 @@ def bundle_bytes(analysis) -> bytes:
 
 
 def write_bundle(analysis, path) -> Path:
-    """Write the bundle to ``path`` atomically: either the whole zip appears, or nothing."""
+    """Write the bundle of ``analysis`` to ``path`` atomically."""
+    return write_bundle_bytes(bundle_bytes(analysis), path)
+
+
+def write_bundle_bytes(data: bytes, path) -> Path:
+    """Write bundle bytes to ``path`` atomically: either the whole zip appears, or nothing."""
     path = Path(path)
     if path.suffix.lower() != ".zip":
         raise LagspaceError(f"a bundle is a .zip file; got {path.name!r}, try {path.with_suffix('.zip').name!r}")
-    data = bundle_bytes(analysis)
-    folder = path.parent if str(path.parent) else Path(".")
+    folder = path.parent
     if not folder.is_dir():
         raise LagspaceError(f"folder {str(folder)!r} does not exist; create it or choose another place for the bundle")
     fd, tmp = tempfile.mkstemp(prefix=".lagspace-", suffix=".zip.part", dir=folder)

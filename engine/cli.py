@@ -70,21 +70,17 @@ def _parser() -> _Parser:
     return p
 
 
-def settings_from_args(args, base=None):
-    """Settings from command-line options laid over ``base`` (default settings)."""
-    from .settings import Settings
-
-    base = base or Settings()
+def settings_overrides(args) -> dict:
+    """The settings that command-line options set explicitly, as ``{name: value}``."""
     changes = {}
     for name in ("variable", "sampling_interval", "delay", "dimension", "theiler", "surrogates", "seed"):
         value = getattr(args, name, None)
         if value is not None:
             changes[name] = value
-    if getattr(args, "resample", False):
-        changes["resample"] = True
-    if getattr(args, "fill_gaps", False):
-        changes["fill_gaps"] = True
-    return base.replace(**changes)
+    for flag in ("resample", "fill_gaps"):
+        if getattr(args, flag, False):
+            changes[flag] = True
+    return changes
 
 
 def _analyze(args) -> int:
@@ -93,7 +89,7 @@ def _analyze(args) -> int:
     path = Path(args.input)
     if not path.is_file():
         raise LagspaceError(f"no such file: {args.input}; give the path of a recording or a bundle")
-    result = analysis.analyse_file(path, args, quick=args.quick)
+    result = analysis.analyse_file(path, settings_overrides(args), quick=args.quick)
     if args.bundle:
         from .bundle import write_bundle
 
