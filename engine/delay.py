@@ -1,0 +1,304 @@
+"""Choosing the delay: autocorrelation, average mutual information, dominant period.
+
+References
+----------
+Fraser & Swinney, Phys. Rev. A 33 (1986) 1134 (first minimum of mutual information).
+Cellucci, Albano & Rapp, Phys. Rev. E 71 (2005) 066208 (equiprobable bins, bin count).
+Roulston, Physica D 125 (1999) 285 (bias of histogram mutual information).
+Welch, IEEE Trans. Audio Electroacoust. 15 (1967) 70 (averaged periodograms).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import xarray as xr
+import scipy.fft
+from scipy import signal as sps
+
+from .errors import LagspaceError
+from .kernels.delay import lagged_mutual_information
+
+MAX_BINS = 128
+STRONG_PEAK = 0.5  # fraction of power in the spectral peak above which a period counts as strong
+PERIOD_TOLERANCE = 0.1  # warn when the delay is within 10 % of a multiple of the half-period
+MINIMUM_WINDOW = 2  # a minimum must be the lowest value within +-2 lags
+SHALLOW = 0.1  # a minimum below this fraction of the lag-1 value is flagged as shallow
+NOISE_FACTOR = 3.0  # standard deviations that make a level or a rise "clear"
+
+
+def as_series(x, minimum: int = 16, what: str = "the series") -> np.ndarray:
+    """``x`` (array-like or Recording) as a finite, non-constant float64 1-D array."""
+    if isinstance(x, xr.Dataset):
+        from .recording import signal
+
+        x = signal(x)
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    if x.ndim != 1:
+        raise LagspaceError(f"{what} must be one channel (1-D), got shape {x.shape}; pick one column")
+    if x.size < minimum:
+        raise LagspaceError(f"{what} has {x.size} samples; need at least {minimum}: use a longer recording")
+    if not np.all(np.isfinite(x)):
+        raise LagspaceError(f"{what} contains NaN or infinite values; fill or crop the gaps first")
+    if np.ptp(x) == 0:
+        raise LagspaceError(f"{what} is constant; a constant signal carries no dynamics to embed")
+    return x
+
+
+def _check_max_lag(max_lag, n: int) -> int:
+    limit = n // 2 - 1
+    if isinstance(max_lag, bool) or int(max_lag) != max_lag or not 1 <= max_lag <= limit:
+        raise LagspaceError(f"max_lag must be a whole number between 1 and {limit} (half the {n} samples), got {max_lag!r}")
+    return int(max_lag)
+
+
+def _first_below(values: np.ndarray, level: float):
+    hit = np.flatnonzero(values < level)
+    return int(hit[0]) if hit.size else None
+
+
+def autocorrelation(x, max_lag: int) -> xr.Dataset:
+    """Sample autocorrelation for lags 0..max_lag, with its characteristic times.
+
+    The biased estimator ``r(k) = sum_i (x_i - m)(x_{i+k} - m) / sum_i (x_i - m)^2``,
+    computed by FFT of the zero-padded, mean-removed series (Wiener-Khinchin).
+    ``attrs["autocorrelation_times"]`` holds the first lag at which ``r`` drops to
+    or below zero and the first lag at which it drops below 1/e (null, with a
+    reason, when that does not happen up to ``max_lag``).
+
+    References
+    ----------
+    Box, Jenkins & Reinsel, *Time Series Analysis*, Wiley (2008), sec. 2.1.
+    """
+    x = as_series(x)
+    max_lag = _check_max_lag(max_lag, x.size)
+    d = x - x.mean()
+    size = scipy.fft.next_fast_len(2 * x.size - 1, real=True)
+    spectrum = np.fft.rfft(d, size)
+    acov = np.fft.irfft(spectrum.real**2 + spectrum.imag**2, size)[: max_lag + 1]
+    r = acov / acov[0]
+    first_zero = _first_below(r, np.nextafter(0.0, 1.0))
+    one_over_e = _first_below(r, math.exp(-1.0))
+    times = {"first_zero": first_zero, "one_over_e": one_over_e}
+    missing = [name for name, v in times.items() if v is None]
+    if missing:
+        times["reason"] = f"{' and '.join(missing)} not reached up to lag {max_lag}; increase max_lag"
+    return xr.Dataset(
+        {"autocorrelation": ("lag", r, {"units": "1", "long_name": "autocorrelation"})},
+        coords={"lag": ("lag", np.arange(max_lag + 1), {"units": "sample", "long_name": "lag"})},
+        attrs={"autocorrelation_times": json.dumps(times)},
+    )
+
+
+def default_bins(n_samples: int) -> int:
+    """Equiprobable bins per axis: ``floor(sqrt(N / 5))`` within [4, 128].
+
+    With B bins per axis and equal marginal mass, each of the B^2 joint cells
+    expects N / B^2 = 5 pairs, the occupancy Cellucci et al. (2005) ask for.
+    The cap of 128 keeps the joint histogram (16 384 cells) in cache for long
+    recordings; the delay is read from the shape of the curve, which no longer
+    changes with finer bins.
+    """
+    return int(np.clip(math.floor(math.sqrt(n_samples / 5.0)), 4, MAX_BINS))
+
+
+def equiprobable_bins(x: np.ndarray, n_bins: int) -> np.ndarray:
+    """Bin index of every sample for ``n_bins`` bins of (nearly) equal count.
+
+    Edges are order statistics; equal values always share a bin, so quantised
+    data never get split at random across a bin edge.
+    """
+    ordered = np.sort(x)
+    edges = ordered[(np.arange(1, n_bins) * x.size) // n_bins]
+    return np.searchsorted(edges, x, side="right").astype(np.int32)
+
+
+def mutual_information(x, max_lag: int, bins: int | None = None) -> xr.Dataset:
+    """Average mutual information between x(t) and x(t + lag), in nats.
+
+    Each sample is put in one of ``bins`` equiprobable bins (order statistics as
+    edges); for each lag the joint histogram of (bin(x_i), bin(x_{i+lag})) gives
+    the plug-in estimate ``sum p_ab ln(p_ab / (p_a p_b))``. Its first-order bias,
+    ``(B_ab - B_a - B_b + 1) / (2 n)`` with B the counts of occupied cells, rows
+    and columns (Roulston 1999), is subtracted, so independent values give about
+    0 (small negative values are sampling error). ``bins=None`` uses
+    :func:`default_bins`. Lag 0 is the entropy of the binned series.
+
+    ``attrs["mutual_information"]`` records the bins, the bias correction,
+    ``noise_level``, the standard deviation of the estimate for independent
+    values, s = (B - 1) / (sqrt(2) N) (2 n times the plug-in estimate is then
+    chi-square with (B - 1)^2 degrees of freedom), and ``independence_level``,
+    B^4 / (6 N^2) + 3 s: the remaining second-order bias, B^4 / (12 N^2) for
+    independent equiprobable bins, doubled to cover higher orders (as measured
+    on white noise, N = 1e3 to 1e6), plus three standard deviations. Values
+    below it are consistent with independence.
+
+    References
+    ----------
+    Fraser & Swinney, Phys. Rev. A 33 (1986) 1134.
+    Cellucci, Albano & Rapp, Phys. Rev. E 71 (2005) 066208.
+    Roulston, Physica D 125 (1999) 285.
+    """
+    x = as_series(x)
+    max_lag = _check_max_lag(max_lag, x.size)
+    if bins is None:
+        bins = default_bins(x.size)
+    elif isinstance(bins, bool) or int(bins) != bins or not 2 <= bins <= 4096:
+        raise LagspaceError(f"bins must be a whole number between 2 and 4096 (or None to choose), got {bins!r}")
+    bins = int(bins)
+    noise = (bins - 1) / (math.sqrt(2.0) * x.size)
+    info, bias = lagged_mutual_information(equiprobable_bins(x, bins), bins, np.arange(max_lag + 1))
+    facts = {
+        "bins": bins,
+        "samples": int(x.size),
+        "binning": "equiprobable (order statistics as edges)",
+        "bias_correction": "first order, occupied cells (Roulston 1999)",
+        "noise_level": noise,
+        "independence_level": bins**4 / (6.0 * x.size**2) + NOISE_FACTOR * noise,
+    }
+    return xr.Dataset(
+        {"mutual_information": ("lag", info - bias, {"units": "nat", "long_name": "average mutual information"})},
+        coords={"lag": ("lag", np.arange(max_lag + 1), {"units": "sample", "long_name": "lag"})},
+        attrs={"mutual_information": json.dumps(facts)},
+    )
+
+
+def dominant_period(x, sampling_interval: float = 1.0) -> dict:
+    """Period of the highest peak of the Welch power spectrum, and its strength.
+
+    Segments of about N/8 samples (a power of two, 64 to N) with a Hann window;
+    the peak frequency is refined by a parabola through the log power of the peak
+    bin and its neighbours. ``strength`` is the fraction of the power (zero
+    frequency left out) within +-2 bins of the peak: about 1 for a sine, small
+    for broadband signals. A peak in the lowest two frequency bins is not a
+    resolved period (red spectra peak there): then ``samples`` is null with a reason.
+
+    References
+    ----------
+    Welch, IEEE Trans. Audio Electroacoust. 15 (1967) 70.
+    """
+    x = as_series(x)
+    dt = _check_interval(sampling_interval)
+    nperseg = int(min(x.size, 2 ** max(6, round(math.log2(x.size / 8.0)))))
+    freq, power = sps.welch(x, nperseg=nperseg)
+    k = 1 + int(np.argmax(power[1:]))
+    strength = float(power[max(1, k - 2) : k + 3].sum() / power[1:].sum())
+    if k < 3:
+        return {"samples": None, "time": None, "strength": strength,
+                "reason": f"the spectrum is largest at the lowest frequencies: no period shorter than a third "
+                          f"of the {nperseg}-sample Welch segment stands out"}
+    offset = 0.0
+    if k < power.size - 1 and np.all(power[k - 1 : k + 2] > 0):
+        a, b, c = np.log(power[k - 1 : k + 2])
+        offset = 0.5 * (a - c) / (a - 2 * b + c) if a - 2 * b + c < 0 else 0.0
+    samples = 1.0 / ((k + offset) * freq[1])
+    return {"samples": float(samples), "time": float(samples * dt), "strength": strength}
+
+
+def _check_interval(sampling_interval) -> float:
+    if isinstance(sampling_interval, bool) or not isinstance(sampling_interval, (int, float)) or not sampling_interval > 0:
+        raise LagspaceError(f"sampling_interval must be a positive number, got {sampling_interval!r}")
+    return float(sampling_interval)
+
+
+def period_warning(delay: int, period: float, strength: float) -> str | None:
+    """A warning when ``delay`` sits within 10 % of a multiple of half the period.
+
+    Only for a strong periodic component (``strength >= 0.5``). At a half-period
+    x(t + tau) is close to -x(t), at a full period close to x(t): either way the
+    delay vectors collapse towards a line (fact of the trade).
+    """
+    if period is None or strength is None or strength < STRONG_PEAK or not period > 0:
+        return None
+    half = period / 2.0
+    multiple = round(delay / half)
+    if multiple < 1 or abs(delay / half - multiple) > PERIOD_TOLERANCE:
+        return None
+    which = "the period" if multiple == 2 else f"{multiple / 2:g} periods" if multiple % 2 == 0 else (
+        "half the period" if multiple == 1 else f"{multiple} half-periods")
+    return (
+        f"delay {delay} samples is close to {which} of the dominant oscillation ({period:.4g} samples, "
+        f"{strength:.0%} of the power): delay vectors fold onto a line there; prefer about a quarter period "
+        f"({period / 4:.3g} samples)"
+    )
+
+
+def _first_clear_minimum(m: np.ndarray, facts: dict):
+    """First lag that is the lowest within +-2 lags, above the independence level
+    and followed later by a rise of more than 3 noise levels; ``(lag, floor_lag)``."""
+    floor, rise = facts["independence_level"], NOISE_FACTOR * facts["noise_level"]
+    w = MINIMUM_WINDOW
+    for k in range(1, m.size - w):
+        if m[k] <= floor:
+            return None, k
+        if m[k] < m[k - 1] and m[k] <= m[max(1, k - w) : k + w + 1].min() and m[k + 1 :].max() - m[k] > rise:
+            return k, None
+    return None, None
+
+
+def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0, time_unit: str = "sample") -> dict:
+    """Suggest a delay with the reason, alternatives and warnings.
+
+    Rule (Fraser & Swinney 1986): the first clear minimum of the mutual
+    information. A lag counts when it is the lowest value within +-2 lags, when
+    the curve there is still above the level of independent values and when it
+    rises later by more than 3 noise levels (see :func:`mutual_information`).
+    When there is none (the mutual information decays into its noise, as for
+    linear processes and maps), the first lag at which the autocorrelation drops
+    below 1/e is used; for maps that is usually 1. Without either, the delay is
+    null with a reason. ``dominant`` (from :func:`dominant_period`) adds a warning
+    when the delay is near a multiple of half a strong period.
+
+    References
+    ----------
+    Fraser & Swinney, Phys. Rev. A 33 (1986) 1134.
+    """
+    dt = _check_interval(sampling_interval)
+    for ds, name in ((ami_ds, "mutual_information"), (acf_ds, "autocorrelation")):
+        if not isinstance(ds, xr.Dataset) or name not in ds:
+            raise LagspaceError(f"suggest_delay needs the dataset returned by {name}(); got {type(ds).__name__}")
+    m = np.asarray(ami_ds["mutual_information"].values, dtype=float)
+    facts = json.loads(ami_ds.attrs["mutual_information"])
+    times = json.loads(acf_ds.attrs["autocorrelation_times"])
+    alternatives = {"autocorrelation_first_zero": times["first_zero"], "autocorrelation_one_over_e": times["one_over_e"]}
+    warnings = []
+    lag, floor_lag = _first_clear_minimum(m, facts)
+    if lag is not None:
+        method = "first minimum of mutual information"
+        reason = (f"the mutual information has its first clear minimum at lag {lag} "
+                  f"({m[lag]:.3g} nats, down from {m[1]:.3g} at lag 1)")
+        if m[lag] < SHALLOW * m[1]:
+            warnings.append(
+                f"the minimum is shallow ({m[lag]:.2g} nats, under a tenth of the lag-1 value), where the curve "
+                f"is nearly flat and its wiggles are mostly sampling noise; the autocorrelation drops below 1/e "
+                f"at lag {times['one_over_e']}")
+    else:
+        why = (f"the mutual information decays to the level of independent values "
+               f"({facts['independence_level']:.2g} nats) "
+               f"by lag {floor_lag} without a clear minimum" if floor_lag is not None else
+               f"the mutual information has no clear minimum up to lag {m.size - 1}")
+        lag = times["one_over_e"]
+        if lag is not None:
+            method = "autocorrelation 1/e"
+            reason = f"{why}; using the first lag at which the autocorrelation drops below 1/e, {lag}"
+            if lag == 1:
+                reason += " (the series decorrelates within one sample, as maps do; delay 1 is usual there)"
+        else:
+            method = "none"
+            reason = f"{why}, and the autocorrelation stays above 1/e up to lag {m.size - 1}: increase max_lag"
+            warnings.append("no delay could be estimated; set one by hand or compute longer lags")
+    if lag is not None and dominant is not None:
+        note = period_warning(lag, dominant.get("samples"), dominant.get("strength"))
+        if note:
+            warnings.append(note)
+    return {
+        "samples": lag,
+        "time": None if lag is None else lag * dt,
+        "time_unit": str(time_unit),
+        "method": method,
+        "reason": reason,
+        "warnings": warnings,
+        "alternatives": alternatives,
+    }
