@@ -1,0 +1,584 @@
+"""Turn a file (or its bytes) into a Recording.
+
+Formats, told apart by their first bytes and, failing that, by the file name:
+
+- text: CSV, TSV, semicolon- or whitespace-separated, with or without a header
+  and a time column; ``#`` and ``%`` lines are comments; a header field such as
+  ``strain [ue]``, ``temp (K)`` or ``time_s`` gives the units; decimal commas
+  are read when the separator is not a comma;
+- NetCDF 3 (read with scipy) and NetCDF 4 / HDF5 (read with h5netcdf);
+- ``.npy`` (never unpickled);
+- ``.wav`` (raw counts, interval from the sample rate).
+
+An integer ``variable`` (or ``channel``) counts columns from 0 as they stand in
+the file (text, ``.npy``, ``.wav``) or 1-D variables in file order (NetCDF);
+a column without a header is called ``column_<k>`` with that same ``k``.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import os
+import re
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .checks import attach_checks
+from .errors import RecordingError
+from .recording import make_recording
+
+FORMATS = "CSV/TSV/TXT text, NetCDF 3 or 4 (.nc), .npy or .wav"
+
+# seconds per unit, for time units that have a fixed length
+_SECONDS = {
+    "s": 1.0, "sec": 1.0, "secs": 1.0, "second": 1.0, "seconds": 1.0,
+    "ms": 1e-3, "msec": 1e-3, "millisecond": 1e-3, "milliseconds": 1e-3,
+    "us": 1e-6, "µs": 1e-6, "microsecond": 1e-6, "microseconds": 1e-6,
+    "ns": 1e-9, "nanosecond": 1e-9, "nanoseconds": 1e-9,
+    "min": 60.0, "minute": 60.0, "minutes": 60.0,
+    "h": 3600.0, "hr": 3600.0, "hour": 3600.0, "hours": 3600.0,
+    "d": 86400.0, "day": 86400.0, "days": 86400.0,
+}
+# units accepted as a name suffix, as in "strain_ue" or "time_ms"
+_SUFFIX_UNITS = {"s", "ms", "us", "ns", "min", "h", "ue", "uV", "mV", "V", "mA", "K", "degC",
+                 "Pa", "kPa", "hPa", "mbar", "bar", "mm", "um", "nm", "g", "Hz", "rpm"}
+_TIME_NAMES = {"time", "t", "times", "timestamp", "timestamps", "datetime", "date", "seconds",
+               "secs", "sec", "elapsed", "elapsed_time", "clock"}
+_INDEX_NAMES = {"sample", "samples", "index", "idx", "n", "i", "sample_number", "step"}
+_DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
+_WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\]\)]*[\]\)])?|[\[\(][^\]\)]*[\]\)]")
+
+
+@dataclass
+class _Series:
+    """One candidate channel of a file, with the time it comes on (if any)."""
+
+    name: str
+    values: np.ndarray
+    units: str = "1"
+    long_name: str = ""
+    time: np.ndarray | None = None
+    time_unit: str = "sample"
+    interval: float | None = None
+
+
+@dataclass
+class _Contents:
+    format: str
+    series: list[tuple[int, _Series]]  # (index used by an integer `variable`, series)
+    time_columns: list[str]
+
+
+# -- public -----------------------------------------------------------------------------
+
+
+def load_recording(
+    source,
+    *,
+    name: str | None = None,
+    variable: str | int | None = None,
+    sampling_interval: float | None = None,
+    channel: int | None = None,
+    time_column: str | int | None = None,
+    max_bytes: int = 200_000_000,
+    max_samples: int = 10_000_000,
+) -> xr.Dataset:
+    """Read one channel of a file into a Recording (see ``engine.recording``).
+
+    Parameters
+    ----------
+    source : str, Path or bytes
+        A file path, or the file's bytes (then ``name`` gives the file name).
+    name : file name used for format detection and the ``source`` attribute
+        (only its base name is kept).
+    variable : column / variable name, or its 0-based index (see module notes).
+    sampling_interval : seconds between samples; re-stamps the time as
+        ``i * sampling_interval`` in ``"s"``, overriding any time in the file.
+    channel : 0-based channel index (the same as an integer ``variable``).
+    time_column : name or 0-based file column index of the time column (text
+        and ``.npy``); by default a column named like time, a column of dates,
+        or a strictly increasing first column of two or more.
+    max_bytes, max_samples : limits beyond which the file is refused.
+
+    Returns
+    -------
+    xr.Dataset, a Recording with ``source`` (base name), ``sha256``, ``format``
+    and ``checks`` (the findings of :func:`engine.checks.check_recording`;
+    loading never refuses, preparation does). Without time information the
+    time unit is ``"sample"`` and the interval 1.
+    """
+    if channel is not None and variable is not None:
+        raise RecordingError("give either variable or channel, not both")
+    interval = _check_interval(sampling_interval)
+    data, base = _read_source(source, name, max_bytes)
+    contents = _parse(data, base, time_column, max_samples)
+    s = _choose(contents, channel if channel is not None else variable)
+    if s.values.size > max_samples:
+        raise RecordingError(
+            f"{base} holds {s.values.size} samples, more than the limit of {max_samples}: "
+            "crop or decimate the file, or raise max_samples"
+        )
+    time, time_unit = (None, "s") if interval is not None else (s.time, s.time_unit)
+    interval = interval if interval is not None else s.interval
+    rec = make_recording(
+        s.values, time, name=s.name, units=s.units or "1", time_unit=time_unit, source=base,
+        sha256=hashlib.sha256(data).hexdigest(), sampling_interval=interval,
+    )
+    rec[s.name].attrs["long_name"] = s.long_name or s.name
+    rec.attrs["format"] = contents.format
+    return attach_checks(rec)
+
+
+def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000_000) -> dict:
+    """What a file offers, so that a UI can ask only the questions that matter.
+
+    Returns ``{"format": str, "variables": [names], "time_columns": [names],
+    "needs_variable": bool}``; ``needs_variable`` is true when more than one
+    channel could be meant and ``load_recording`` needs ``variable``.
+    """
+    data, base = _read_source(source, name, max_bytes)
+    contents = _parse(data, base, None, None)
+    return {
+        "format": contents.format,
+        "variables": [s.name for _, s in contents.series],
+        "time_columns": list(contents.time_columns),
+        "needs_variable": len(contents.series) > 1,
+    }
+
+
+# -- reading bytes and telling formats apart ----------------------------------------------
+
+
+def _check_interval(value):
+    if value is None:
+        return None
+    try:
+        dt = float(value)
+    except (TypeError, ValueError):
+        dt = float("nan")
+    if isinstance(value, bool) or not (np.isfinite(dt) and dt > 0):
+        raise RecordingError(f"sampling_interval must be a positive number of seconds, got {value!r}")
+    return dt
+
+
+def _base_name(text) -> str:
+    return re.split(r"[\\/]", str(text))[-1]
+
+
+def _read_source(source, name, max_bytes) -> tuple[bytes, str]:
+    if isinstance(source, (bytes, bytearray, memoryview)):
+        data, base = bytes(source), _base_name(name) if name else "upload"
+    elif isinstance(source, (str, os.PathLike)):
+        path = os.fspath(source)
+        base = _base_name(name) if name else _base_name(path)
+        if not os.path.isfile(path):
+            raise RecordingError(f"file {base!r} not found (or not a file): give the path of a {FORMATS} file")
+        size = os.path.getsize(path)
+        if size > max_bytes:
+            raise _too_big(base, size, max_bytes)
+        with open(path, "rb") as fh:
+            data = fh.read()
+    else:
+        raise RecordingError(f"a recording is read from a file path or bytes, got {type(source).__name__}")
+    if len(data) > max_bytes:
+        raise _too_big(base, len(data), max_bytes)
+    if not data.strip():
+        raise RecordingError(f"{base} is empty: give a file with one sample per line or row ({FORMATS})")
+    return data, base
+
+
+def _too_big(base, size, limit):
+    return RecordingError(
+        f"{base} is {size / 1e6:.1f} MB, more than the limit of {limit / 1e6:.1f} MB: "
+        "crop or decimate it first, or raise max_bytes"
+    )
+
+
+def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
+    ext = os.path.splitext(base)[1].lower()
+    if data[:4] == b"CDF\x05":
+        raise RecordingError(f"{base} is 64-bit-data NetCDF (CDF-5), which cannot be read: save it as NetCDF4 or NetCDF3")
+    if data[:4] in (b"CDF\x01", b"CDF\x02"):
+        return _read_netcdf(data, base, "scipy")
+    if data[:8] == b"\x89HDF\r\n\x1a\n":
+        return _read_netcdf(data, base, "h5netcdf")
+    if data[:6] == b"\x93NUMPY":
+        return _read_npy(data, base, time_column)
+    if data[:4] == b"RIFF" and data[8:12] == b"WAVE":
+        return _read_wav(data, base)
+    if ext in (".nc", ".nc3", ".nc4", ".cdf", ".h5", ".hdf5", ".npy", ".wav", ".npz"):
+        raise RecordingError(f"{base} does not start like a {ext} file (damaged or misnamed): give a {FORMATS} file")
+    text = _decode(data)
+    if text is None:
+        raise RecordingError(f"{base} is not a recognised format (binary data): give a {FORMATS} file")
+    return _read_text(text, base, time_column, max_samples)
+
+
+def _decode(data: bytes) -> str | None:
+    """The text of ``data``, or None if it does not look like text."""
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            return data.decode("utf-16")
+        except UnicodeDecodeError:
+            return None
+    head = data[:65536]
+    if b"\x00" in head:
+        return None
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        text = data.decode("cp1252", errors="replace")
+    controls = sum(ch < " " and ch not in "\t\r\n\f\v" for ch in text[:65536])
+    return None if controls > 0.01 * min(len(text), 65536) else text
+
+
+# -- choosing the channel --------------------------------------------------------------
+
+
+def _choose(contents: _Contents, variable) -> _Series:
+    series = contents.series
+    names = {s.name for _, s in series}
+    listing = ", ".join(f"{i}: {s.name!r}" for i, s in series)
+    if not series:
+        raise RecordingError("the file has no channel to analyse")
+    if variable is None:
+        if len(series) > 1:
+            raise RecordingError(f"the file has {len(series)} channels; choose one with variable (name or index): {listing}")
+        return series[0][1]
+    if isinstance(variable, (int, np.integer)) and not isinstance(variable, bool):
+        for i, s in series:
+            if i == variable:
+                return s
+    else:
+        wanted = str(variable).strip()
+        for i, s in series:
+            if wanted in (s.name, s.long_name) or wanted == str(i) and wanted not in names:
+                return s
+    raise RecordingError(f"no channel {variable!r} in the file; choose one of {listing}")
+
+
+def _time_factor(units: str):
+    """(seconds per unit, unit label) for a time unit written in a file."""
+    u = units.strip()
+    if u.lower() in _SECONDS:
+        return _SECONDS[u.lower()], "s"
+    if u.lower() in _INDEX_NAMES or u.lower() in ("samples", "sample"):
+        return 1.0, "sample"
+    return 1.0, (u or "unknown")
+
+
+# -- text ---------------------------------------------------------------------------
+
+
+def _split_units(field: str) -> tuple[str, str]:
+    """``"strain [ue]"`` -> ("strain", "ue"); ``"time_ms"`` -> ("time", "ms")."""
+    field = field.strip().strip('"').strip()
+    m = re.fullmatch(r"(.*?)\s*[\[\(]\s*([^\]\)]*?)\s*[\]\)]", field)
+    if m and m.group(1):
+        return m.group(1), m.group(2)
+    head, _, tail = field.rpartition("_")
+    if head and tail in _SUFFIX_UNITS:
+        return head, tail
+    return field, ""
+
+
+def _field_kind(field: str, decimal: str) -> str:
+    field = field.strip().strip('"')
+    if not field:
+        return "empty"
+    try:
+        float(field.replace(decimal, ".") if decimal == "," else field)
+        return "number"
+    except ValueError:
+        return "date" if _DATE_RE.fullmatch(field) else "text"
+
+
+def _fields(line: str, sep: str | None) -> list[str]:
+    if sep is None:
+        return [line]
+    if sep == "whitespace":
+        return line.split()
+    return next(csv.reader([line], delimiter=sep, skipinitialspace=True))
+
+
+def _sniff(lines: list[str]) -> tuple[str | None, str]:
+    """(separator, decimal mark) that split the sample lines consistently."""
+    sample = lines[1:51] if len(lines) > 1 else lines
+    sep = None
+    for candidate in ("\t", ";", ",", "whitespace"):
+        counts = {len(_fields(ln, candidate)) for ln in sample}
+        if len(counts) == 1 and counts.pop() > 1:
+            sep = candidate
+            break
+    decimal = "."
+    if sep != ",":
+        cells = [f for ln in sample for f in _fields(ln, sep)]
+        if any(re.fullmatch(r"[-+]?\d*,\d+(e[-+]?\d+)?", c, re.I) for c in cells) and not any(
+            re.fullmatch(r"[-+]?\d*\.\d+", c) for c in cells
+        ):
+            decimal = ","
+    return sep, decimal
+
+
+def _header_fields(line: str, sep: str | None, n: int) -> list[str]:
+    fields = _fields(line, sep)
+    if sep == "whitespace" and len(fields) != n:
+        fields = _WS_HEADER_RE.findall(line)
+    return [f.strip().strip('"') for f in fields]
+
+
+def _is_header(line: str, below: str | None, sep, decimal) -> bool:
+    """A line is a header when one of its fields is words above a non-word field."""
+    fields = _fields(line, sep)
+    under = _fields(below, sep) if below is not None else []
+    under += [""] * len(fields)
+    return any(_field_kind(a, decimal) == "text" and _field_kind(b, decimal) != "text" for a, b in zip(fields, under))
+
+
+def _read_text(text: str, base: str, time_column, max_samples) -> _Contents:
+    text = re.sub(r"(?m)^[ \t]*[#%].*(\n|$)", "", text.replace("\r\n", "\n").replace("\r", "\n"))
+    raw = text[:200_000].split("\n")[:200]
+    content = [i for i, ln in enumerate(raw) if ln.strip()]
+    head = [raw[i].strip() for i in content[:60]]
+    if not head:
+        raise RecordingError(f"{base} has only comments or blank lines: give one sample per line")
+    if max_samples is not None and text.count("\n") > max_samples + 2:
+        raise RecordingError(
+            f"{base} has {text.count(chr(10))} rows, more than the limit of {max_samples} samples: "
+            "crop or decimate the file, or raise max_samples"
+        )
+    sep, decimal = _sniff(head)
+    below = head[1] if len(head) > 1 else None
+    if _is_header(head[0], below, sep, decimal):
+        n_header = 1
+    elif len(head) > 2 and _is_header(head[1], head[2], sep, decimal):
+        n_header = 2  # a row of names, then a row of units
+    else:
+        n_header = 0
+    if n_header and len(head) == n_header:
+        raise RecordingError(f"{base} has a header but no data rows: add one sample per line below the header")
+    skip = content[n_header - 1] + 1 if n_header else 0
+    try:
+        frame = pd.read_csv(
+            io.StringIO(text), header=None, skiprows=skip, comment="#", decimal=decimal,
+            sep=r"\s+" if sep == "whitespace" else (sep or "\x1f"), skipinitialspace=True, low_memory=False,
+        )
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        msg = " ".join(str(exc).split()).replace("Error tokenizing data. C error: ", "")
+        raise RecordingError(f"{base} could not be read as a table ({msg}): every row needs the same columns") from None
+    names = _header_fields(head[0], sep, frame.shape[1]) if n_header else []
+    units = _header_fields(head[1], sep, frame.shape[1]) if n_header == 2 else []
+    columns = []  # (file index, header field, kind, float values)
+    for k in range(frame.shape[1]):
+        header = names[k] if k < len(names) else ""
+        if k < len(units) and units[k] and not _split_units(header)[1]:
+            header = f"{header} [{units[k]}]"
+        kind, values = _column_values(frame[k], header or f"column_{k}", base)
+        if kind == "number" and not header and np.isnan(values).all():
+            continue  # a trailing separator's empty column
+        if kind != "text":
+            columns.append((k, header, kind, values))
+    if not columns:
+        raise RecordingError(f"{base} has no numeric column: give a file of numbers, one sample per row")
+    return _table(columns, "text", time_column, base)
+
+
+def _column_values(col: pd.Series, label: str, base: str):
+    """("number" | "date" | "text", float values) of one text column."""
+    if pd.api.types.is_numeric_dtype(col):
+        return "number", col.to_numpy(dtype=float)
+    present = col.notna().to_numpy()
+    numbers = pd.to_numeric(col, errors="coerce")
+    bad = present & numbers.isna().to_numpy()
+    if not bad.any():
+        return "number", numbers.to_numpy(dtype=float)
+    if present.sum() and all(_DATE_RE.fullmatch(str(v).strip()) for v in col[present].iloc[:20]):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            stamps = pd.to_datetime(col, errors="coerce", format="ISO8601")
+            if (stamps.isna().to_numpy() & present).any():
+                stamps = pd.to_datetime(col, errors="coerce", format="mixed")
+        if not (stamps.isna().to_numpy() & present).any():
+            seconds = (stamps - stamps.iloc[0]).dt.total_seconds()
+            return "date", seconds.to_numpy(dtype=float)
+    if bad.mean() < 0.5:
+        row = int(np.flatnonzero(bad)[0])
+        raise RecordingError(
+            f"{base}: column {label!r} is numeric but data row {row + 1} holds {str(col.iloc[row])!r}: "
+            "fix that entry or leave it blank (blank entries are read as missing)"
+        )
+    return "text", None
+
+
+def _is_time_name(header: str) -> bool:
+    stem = _split_units(header)[0].strip()
+    if len(stem) == 1:  # "T" is often a temperature, "N" a force
+        return stem in _TIME_NAMES or stem in _INDEX_NAMES
+    stem = stem.lower()
+    return stem in _TIME_NAMES or stem in _INDEX_NAMES or stem.startswith("time")
+
+
+def _table(columns, fmt: str, time_column, base: str) -> _Contents:
+    """Pick the time column of a table and make one series per other column.
+
+    ``columns`` holds (file index, header field, "number" | "date", values).
+    """
+    candidates = [c for c in columns if c[1] and (_is_time_name(c[1]) or _split_units(c[1])[1].lower() in _SECONDS)]
+    candidates += [c for c in columns if c[2] == "date" and c not in candidates]
+    first = columns[0]
+    if len(columns) > 1 and first[0] == 0 and first not in candidates and _increasing(first[3]):
+        candidates.append(first)
+    if time_column is None:
+        chosen = candidates[0] if candidates else None
+    else:
+        chosen = next((c for c in columns if _matches(c, time_column)), None)
+        if chosen is None:
+            listing = ", ".join(f"{c[0]}: {c[1] or 'column_%d' % c[0]!r}" for c in columns)
+            raise RecordingError(f"no numeric column {time_column!r} to use as time in {base}; columns are {listing}")
+    time, time_unit = None, "sample"
+    if chosen is not None:
+        time = chosen[3]
+        if np.isnan(time).any():
+            row = int(np.flatnonzero(np.isnan(time))[0])
+            raise RecordingError(f"{base}: the time column has no value at data row {row + 1}: fill it in or remove that row")
+        stem, units = _split_units(chosen[1]) if chosen[1] else ("", "")
+        if chosen[2] == "date":
+            time_unit = "s"
+        else:
+            factor, time_unit = _time_factor(units or (stem if stem.lower() in _SECONDS else ""))
+            if not units and (stem.lower() in _INDEX_NAMES or not chosen[1] and np.all(np.diff(time) == 1)):
+                time_unit = "sample"  # a sample counter
+            time = time * factor
+    series = []
+    for k, header, kind, values in columns:
+        if chosen is not None and k == chosen[0] or kind == "date":
+            continue
+        stem, units = _split_units(header) if header else (f"column_{k}", "")
+        series.append((k, _Series(_safe_name(stem), values, units or "1", header or stem, time, time_unit)))
+    if not series:
+        raise RecordingError(f"{base} holds only a time column ({chosen[1] or 'column 0'}): add a column of measured values")
+    return _Contents(fmt, series, [c[1] or f"column_{c[0]}" for c in candidates])
+
+
+def _matches(column, wanted) -> bool:
+    k, header = column[0], column[1]
+    if isinstance(wanted, (int, np.integer)) and not isinstance(wanted, bool):
+        return k == wanted
+    return str(wanted).strip() in (header, _split_units(header)[0], f"column_{k}")
+
+
+def _increasing(values) -> bool:
+    return values.size > 1 and bool(np.all(np.diff(values) > 0))
+
+
+def _safe_name(stem: str) -> str:
+    stem = stem.replace("/", "_").strip() or "signal"
+    return "value" if stem == "time" else stem
+
+
+# -- binary formats ------------------------------------------------------------------
+
+
+def _read_netcdf(data: bytes, base: str, engine: str) -> _Contents:
+    label = "NetCDF3" if engine == "scipy" else "NetCDF4"
+    try:
+        ds = xr.open_dataset(io.BytesIO(data), engine=engine, decode_times=False)
+    except Exception as exc:  # the readers raise many types for damaged files
+        raise RecordingError(f"{base} could not be read as {label} ({type(exc).__name__}): check the file is complete") from None
+    with ds:
+        usable, other = [], []
+        for name, var in ds.data_vars.items():
+            if var.ndim == 1 and var.dtype.kind in "biuf" and " since " not in str(var.attrs.get("units", "")):
+                usable.append(str(name))
+            else:
+                other.append(f"{name} {tuple(var.dims)}")
+        if not usable:
+            raise RecordingError(
+                f"{base} has no 1-D numeric variable (found: {', '.join(other) or 'none'}): "
+                "save one channel as a 1-D variable along time"
+            )
+        series = []
+        for i, name in enumerate(usable):
+            var = ds[name]
+            time, time_unit = _netcdf_time(ds, var.dims[0], base)
+            series.append((i, _Series(
+                _safe_name(name), var.values.astype(float), str(var.attrs.get("units", "1")),
+                str(var.attrs.get("long_name", name)), time, time_unit,
+            )))
+        times = sorted({str(ds[name].dims[0]) for name in usable if ds[name].dims[0] in ds.coords})
+    return _Contents(label, series, times)
+
+
+def _netcdf_time(ds, dim, base):
+    if dim not in ds.coords or ds[dim].dtype.kind not in "iuf":
+        return None, "sample"
+    coord = ds[dim]
+    values = coord.values.astype(float)
+    units = str(coord.attrs.get("units", ""))
+    m = re.fullmatch(r"\s*(\w+)\s+since\s+.+", units)
+    if m:
+        factor, label = _time_factor(m.group(1))
+        if label != "s":
+            raise RecordingError(
+                f"{base}: time in {m.group(1)!r} has no fixed length in seconds: store time in seconds, hours or days since a date"
+            )
+        return (values - values[0]) * factor if values.size else values, "s"
+    factor, label = _time_factor(units or (dim if str(dim).lower() in _INDEX_NAMES else ""))
+    return values * factor, label
+
+
+def _read_npy(data: bytes, base: str, time_column) -> _Contents:
+    try:
+        arr = np.load(io.BytesIO(data), allow_pickle=False)
+    except ValueError as exc:
+        if "pickle" in str(exc).lower() or "object" in str(exc).lower():
+            raise RecordingError(
+                f"{base} holds Python objects, and uploaded files are never unpickled: "
+                "save a plain numeric array, e.g. np.save(path, values.astype(float))"
+            ) from None
+        raise RecordingError(f"{base} could not be read as .npy ({' '.join(str(exc).split())})") from None
+    except (OSError, EOFError) as exc:
+        raise RecordingError(f"{base} could not be read as .npy ({type(exc).__name__}): check the file is complete") from None
+    if arr.dtype.names:
+        cols = [(k, name, arr[name]) for k, name in enumerate(arr.dtype.names)]
+    elif arr.ndim == 1:
+        cols = [(0, "", arr)]
+    elif arr.ndim == 2:
+        arr = arr if arr.shape[0] >= arr.shape[1] else arr.T  # the longer axis is time
+        cols = [(k, "", arr[:, k]) for k in range(arr.shape[1])]
+    else:
+        raise RecordingError(f"{base} holds a {arr.ndim}-D array of shape {arr.shape}: save a 1-D series or a 2-D array of columns")
+    if any(c[2].ndim != 1 or c[2].dtype.kind not in "biuf" for c in cols):
+        raise RecordingError(f"{base} holds {arr.dtype} data, not real numbers: save a numeric array")
+    if len(cols) == 1:
+        return _Contents("npy", [(0, _Series("signal", cols[0][2].astype(float)))], [])
+    return _table([(k, h, "number", v.astype(float)) for k, h, v in cols], "npy", time_column, base)
+
+
+def _read_wav(data: bytes, base: str) -> _Contents:
+    from scipy.io import wavfile
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            rate, arr = wavfile.read(io.BytesIO(data))
+    except (ValueError, EOFError, OSError) as exc:
+        raise RecordingError(f"{base} could not be read as .wav ({' '.join(str(exc).split())})") from None
+    if rate <= 0 or arr.size == 0:
+        raise RecordingError(f"{base} has no samples or a sample rate of {rate}: give a .wav with audio data")
+    arr = arr.reshape(arr.shape[0], -1)
+    series = [
+        (k, _Series(f"channel_{k}", arr[:, k].astype(float), "1", f"channel {k} (raw counts)",
+                    time_unit="s", interval=1.0 / rate))
+        for k in range(arr.shape[1])
+    ]
+    return _Contents("wav", series, [])
+
+
+__all__ = ["load_recording", "describe_source", "FORMATS"]
