@@ -1,0 +1,223 @@
+"""Figure builders: pure functions from engine datasets to HoloViews objects.
+
+Nothing here computes a result: every number drawn comes from a Recording,
+Diagnostics or Results dataset or from a Summary. The only arithmetic is display
+geometry — thinning long series for the screen (a min/max envelope keeps every
+peak visible) and turning a 3-D delay view for the screen.
+"""
+
+from __future__ import annotations
+
+import json
+
+import holoviews as hv
+import numpy as np
+import xarray as xr
+
+from engine.embedding import delay_vectors
+from engine.recording import json_attr, sampling_interval, signal, time_unit, variable_name
+
+from . import style
+
+hv.extension("bokeh", logo=False)
+
+MAX_LINE_POINTS = 4000
+MAX_CLOUD_POINTS = 5000
+
+
+# -- display geometry ---------------------------------------------------------------------------------
+def envelope(t, x, max_points: int = MAX_LINE_POINTS):
+    """Thin (t, x) to at most ``max_points`` points keeping each bin's minimum and maximum.
+
+    Display only: a line through the result has the same peaks and troughs as the
+    full series at screen resolution. Series already short enough come back as they are.
+    """
+    t, x = np.asarray(t), np.asarray(x)
+    n = x.size
+    if n <= max_points:
+        return t, x
+    bins = max(1, max_points // 2)
+    size = -(-n // bins)                      # ceiling division
+    pad = bins * size - n
+    xp = np.concatenate([x, np.full(pad, np.nan)]).reshape(bins, size)
+    filled = ~np.all(np.isnan(xp), axis=1)
+    lo = np.where(filled, np.nanargmin(np.where(np.isnan(xp), np.inf, xp), axis=1), 0)
+    hi = np.where(filled, np.nanargmax(np.where(np.isnan(xp), -np.inf, xp), axis=1), 0)
+    start = np.arange(bins) * size
+    idx = np.sort(np.stack([start + lo, start + hi], axis=1), axis=1).ravel()
+    idx = np.unique(idx[idx < n])
+    return t[idx], x[idx]
+
+
+def thin_indices(n: int, max_points: int = MAX_CLOUD_POINTS) -> np.ndarray:
+    """Evenly spaced indices, at most ``max_points`` of ``n`` (for point clouds on screen)."""
+    step = max(1, -(-n // max_points))
+    return np.arange(0, n, step)
+
+
+def view_rotation(azimuth: float, elevation: float) -> np.ndarray:
+    """The 3x3 rotation that turns a cloud by ``azimuth`` about the vertical axis, then tilts
+    it by ``elevation`` towards the viewer (degrees). Rows 0 and 1 are the screen axes."""
+    a, e = np.radians(azimuth), np.radians(elevation)
+    turn = np.array([[np.cos(a), -np.sin(a), 0.0], [np.sin(a), np.cos(a), 0.0], [0.0, 0.0, 1.0]])
+    tilt = np.array([[1.0, 0.0, 0.0], [0.0, np.cos(e), -np.sin(e)], [0.0, np.sin(e), np.cos(e)]])
+    return tilt @ turn
+
+
+def project(points: np.ndarray, azimuth: float, elevation: float) -> np.ndarray:
+    """Screen coordinates (columns: across, up, depth) of centred 3-D points."""
+    centred = points - points.mean(axis=0)
+    return centred @ view_rotation(azimuth, elevation).T
+
+
+# -- labels -------------------------------------------------------------------------------------------
+def _signal_label(rec: xr.Dataset) -> str:
+    name = variable_name(rec)
+    units = rec[name].attrs.get("units", "1")
+    return name if units in ("", "1") else f"{name} ({units})"
+
+
+def _var_label(ds: xr.Dataset, var: str) -> str:
+    attrs = ds[var].attrs
+    label = attrs.get("long_name", var)
+    units = attrs.get("units", "1")
+    return label if units in ("", "1") else f"{label} ({units})"
+
+
+def _attr(ds, key, default=None):
+    if ds is None or key not in ds.attrs:
+        return default
+    value = ds.attrs[key]
+    return json.loads(value) if isinstance(value, str) else value
+
+
+def _fmt(value, digits: int = 3) -> str:
+    return "n/a" if value is None else f"{value:.{digits}g}"
+
+
+def _note(text: str) -> hv.Text:
+    """A placeholder panel that says why there is nothing to draw."""
+    return hv.Text(0.5, 0.5, text).opts(xaxis=None, yaxis=None, toolbar=None, responsive=True, height=200,
+                                        color=style.SLATE, show_frame=False)
+
+
+# -- recording ----------------------------------------------------------------------------------------
+def time_series(rec: xr.Dataset, max_points: int = MAX_LINE_POINTS) -> hv.Curve:
+    """The recording against time, thinned to a min/max envelope for long series."""
+    t, x = envelope(rec["time"].values, signal(rec), max_points)
+    n = rec.sizes["time"]
+    title = f"{variable_name(rec)}: {n:,} samples" + ("" if n <= max_points else f" (drawn as {t.size:,}-point envelope)")
+    return hv.Curve((t, x), kdims=[hv.Dimension("time", label=f"time ({time_unit(rec)})")],
+                    vdims=[hv.Dimension("value", label=_signal_label(rec))]).opts(
+        color=style.INK, line_width=1, title=title, tools=["hover", "xwheel_zoom"], **style.PLOT)
+
+
+def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = "sample"):
+    """Power spectrum (log power) with the dominant period marked at frequency 1 / period."""
+    if spec is None or "power" not in spec:
+        if dominant and dominant.get("time"):
+            return _note(f"dominant period {_fmt(dominant['time'])} {unit} "
+                         f"({_fmt(dominant.get('strength'), 2)} of the power in its peak)")
+        return _note("spectrum: not available")
+    freq_dim = spec["power"].dims[0]
+    f = spec[freq_dim].values
+    p = spec["power"].values
+    keep = (f > 0) & (p > 0)
+    unit = spec[freq_dim].attrs.get("units", "1/sample")
+    curve = hv.Curve((f[keep], p[keep]), kdims=[hv.Dimension("frequency", label=f"frequency ({unit})")],
+                     vdims=[hv.Dimension("power", label=_var_label(spec, "power"))]).opts(
+        color=style.INK, line_width=1, logy=True, tools=["hover"], **style.PLOT)
+    title = "power spectrum"
+    marks = []
+    if dominant and dominant.get("time"):
+        marks.append(hv.VLine(1.0 / dominant["time"]).opts(color=style.CLAY, line_dash="dashed", line_width=2))
+        title += f" — dominant period {_fmt(dominant['time'])} {unit}"
+    return hv.Overlay([curve, *marks]).opts(title=title)
+
+
+# -- delay and dimension ------------------------------------------------------------------------------
+def _lag_curve(diag: xr.Dataset, var: str, colour: str, marked: int | None, title: str):
+    curve = hv.Curve((diag["lag"].values, diag[var].values),
+                     kdims=[hv.Dimension("lag", label="lag (samples)")],
+                     vdims=[hv.Dimension(var, label=_var_label(diag, var))]).opts(
+        color=colour, line_width=2, tools=["hover"], **style.PLOT)
+    parts = [curve]
+    if marked is not None:
+        parts.append(hv.VLine(marked).opts(color=style.CLAY, line_dash="dashed", line_width=2))
+    return hv.Overlay(parts).opts(title=title)
+
+
+def delay_curves(diag: xr.Dataset) -> hv.Layout:
+    """Mutual information and autocorrelation against lag, the chosen delay marked."""
+    delay = _attr(diag, "delay", {})
+    tau = delay.get("samples")
+    mark = (f"chosen delay {tau} samples = {_fmt(delay.get('time'))} {delay.get('time_unit', '')}".rstrip()
+            if tau is not None else "no delay chosen")
+    mi = _lag_curve(diag, "mutual_information", style.INK, tau, f"mutual information — {mark}")
+    ac = _lag_curve(diag, "autocorrelation", style.SAGE, tau, "autocorrelation")
+    zero = hv.HLine(0).opts(color=style.SLATE, line_width=1)
+    return (mi + ac * zero).cols(1).opts(shared_axes=True)
+
+
+def dimension_curves(diag: xr.Dataset) -> hv.Layout:
+    """False-nearest-neighbour fraction and Cao's E1, E2 against dimension, the chosen one marked."""
+    dim = _attr(diag, "embedding_dimension", {}).get("value")
+    d = diag["dimension"].values
+    kd = hv.Dimension("dimension", label="embedding dimension")
+    mark = [hv.VLine(dim).opts(color=style.CLAY, line_dash="dashed", line_width=2)] if dim is not None else []
+    fnn = hv.Curve((d, diag["false_nearest_fraction"].values), kdims=[kd],
+                   vdims=[hv.Dimension("fnn", label=_var_label(diag, "false_nearest_fraction"))]).opts(
+        color=style.INK, line_width=2, tools=["hover"], **style.PLOT)
+    fnn = hv.Overlay([fnn, hv.Scatter(fnn.data).opts(color=style.INK, size=6), *mark]).opts(
+        title=f"false nearest neighbours — chosen dimension {dim}")
+    cao = [hv.Curve((diag["dimension"].values, diag[v].values), kdims=[kd],
+                    vdims=[hv.Dimension("cao", label="Cao's E1 and E2")], label=label).opts(
+        color=colour, line_width=2, tools=["hover"], **style.PLOT)
+        for v, label, colour in (("cao_e1", "E1", style.INK), ("cao_e2", "E2", style.SAGE)) if v in diag]
+    one = hv.HLine(1.0).opts(color=style.SLATE, line_width=1, line_dash="dotted")
+    cao = hv.Overlay([*cao, one, *mark]).opts(title="Cao's E1 (levels off) and E2 (≈ 1 for noise)",
+                                              legend_position="bottom_right")
+    return (fnn + cao).cols(1)
+
+
+def _pair_axes(rec: xr.Dataset, delay: int):
+    label = _signal_label(rec)
+    return (hv.Dimension("x_t", label=f"{label} at t"),
+            hv.Dimension("x_tau", label=f"at t + {delay} samples"))
+
+
+def delay_plot(rec: xr.Dataset, delay: int, max_points: int = MAX_CLOUD_POINTS) -> hv.Path:
+    """The 2-D delay plot x(t + delay) against x(t), as a line through the first ``max_points`` vectors."""
+    v = delay_vectors(signal(rec), 2, int(delay))
+    shown = "" if v.shape[0] <= max_points else f" (first {max_points:,} of {v.shape[0]:,} points)"
+    kx, ky = _pair_axes(rec, delay)
+    return hv.Path([v[:max_points]], kdims=[kx, ky]).opts(
+        color=style.INK, line_width=0.6, alpha=0.8, responsive=True, height=360,
+        title=f"delay plot, delay {delay} samples{shown}", show_grid=True, toolbar="above")
+
+
+def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: float = 20.0,
+                 max_points: int = MAX_CLOUD_POINTS) -> hv.Points:
+    """A turnable 3-D delay view (x(t), x(t+d), x(t+2d)) of evenly thinned vectors, shown by
+    orthographic projection; colour shows depth (darker = nearer)."""
+    v = delay_vectors(signal(rec), 3, int(delay))
+    p = project(np.asarray(v[thin_indices(v.shape[0], max_points)]), azimuth, elevation)
+    reach = float(np.sqrt((p ** 2).sum(axis=1)).max()) * 1.05 or 1.0   # same frame at every angle
+    pts = hv.Points((p[:, 0], p[:, 1], -p[:, 2]), kdims=["across", "up"], vdims=["nearness"])
+    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, frame_width=380,
+                    frame_height=380, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
+                    toolbar="above", title=f"3-D delay view, delay {delay} samples (turn {azimuth:.0f}°, "
+                                           f"tilt {elevation:.0f}°; darker = nearer)")
+
+
+def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layout:
+    """Small delay plots side by side, one per delay, to see the cloud unfold and then smear."""
+    x = signal(rec)
+    plots = []
+    for d in delays:
+        if x.size - int(d) < 2:
+            continue
+        v = delay_vectors(x, 2, int(d))[:max_points]
+        plots.append(hv.Path([v]).opts(color=style.INK, line_width=0.5, alpha=0.8, xaxis=None, yaxis=None,
+                                       width=170, height=170, title=f"delay {d}", toolbar=None))
+    return hv.Layout(plots).cols(len(plots) or 1)

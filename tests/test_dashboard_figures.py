@@ -1,0 +1,92 @@
+"""Figure builders: display geometry against independent references, and every figure renders."""
+
+import holoviews as hv
+import numpy as np
+import pytest
+from scipy.spatial.distance import pdist
+from scipy.spatial.transform import Rotation
+
+import systems
+from engine.recording import make_recording
+
+from dashboard import figures
+
+
+@pytest.fixture(scope="module")
+def lorenz_rec():
+    return make_recording(systems.lorenz(6000), sampling_interval=0.01, time_unit="s", name="x", units="V")
+
+
+def test_envelope_keeps_every_bins_extremes():
+    # Reference: per-bin minima and maxima by numpy reshape (the definition of a min/max envelope).
+    x = systems.ar1(10_000, 0.9, seed=3)
+    t = np.arange(x.size) * 0.5
+    te, xe = figures.envelope(t, x, max_points=1000)
+    assert xe.size <= 1000
+    assert np.all(np.diff(te) > 0)
+    assert np.isin(xe, x).all()
+    bins = x.reshape(500, 20)
+    assert set(bins.min(axis=1)) <= set(xe) and set(bins.max(axis=1)) <= set(xe)
+    assert xe.min() == x.min() and xe.max() == x.max()
+
+
+def test_envelope_handles_ragged_tail_and_short_series():
+    x = systems.white_noise(1003, seed=1)
+    te, xe = figures.envelope(np.arange(1003), x, max_points=100)
+    assert xe.max() == x.max() and xe.min() == x.min() and xe.size <= 100
+    t, y = figures.envelope(np.arange(50), x[:50], max_points=100)
+    assert np.array_equal(y, x[:50])
+
+
+@pytest.mark.parametrize("azimuth, elevation", [(0, 0), (30, 20), (-135, 70), (180, -90)])
+def test_view_rotation_matches_scipy(azimuth, elevation):
+    # Reference: scipy's extrinsic z-then-x rotation (turn about the vertical, then tilt).
+    expected = Rotation.from_euler("zx", [azimuth, elevation], degrees=True).as_matrix()
+    assert np.allclose(figures.view_rotation(azimuth, elevation), expected, atol=1e-12)
+
+
+def test_projection_preserves_distances(lorenz_rec):
+    # A rotation is an isometry: pairwise distances (scipy pdist) are unchanged.
+    x = lorenz_rec["x"].values
+    v = np.column_stack([x[:-32], x[16:-16], x[32:]])[:300]
+    p = figures.project(v, 40.0, 25.0)
+    assert np.allclose(pdist(v), pdist(p))
+    assert np.allclose(p.mean(axis=0), 0.0, atol=1e-9)
+
+
+def test_time_series_labels_and_extremes(lorenz_rec):
+    curve = figures.time_series(lorenz_rec, max_points=2000)
+    y = curve.dimension_values(1)
+    assert y.size <= 2000
+    assert y.max() == lorenz_rec["x"].values.max() and y.min() == lorenz_rec["x"].values.min()
+    assert curve.kdims[0].label == "time (s)" and curve.vdims[0].label == "x (V)"
+
+
+def test_delay_plot_is_the_lagged_pairs(lorenz_rec):
+    # Reference: numpy slicing x[:-tau] against x[tau:].
+    x = lorenz_rec["x"].values
+    path = figures.delay_plot(lorenz_rec, 16, max_points=1000)
+    data = path.split()[0].array()
+    assert np.array_equal(data, np.column_stack([x[:-16], x[16:]])[:1000])
+
+
+def test_rotated_view_keeps_shape(lorenz_rec):
+    pts = figures.rotated_view(lorenz_rec, 10, azimuth=50, elevation=-30, max_points=400)
+    shown = np.column_stack([pts.dimension_values(0), pts.dimension_values(1), -pts.dimension_values(2)])
+    x = lorenz_rec["x"].values
+    v = np.column_stack([x[:-20], x[10:-10], x[20:]])
+    v = v[figures.thin_indices(v.shape[0], 400)]
+    assert shown.shape[0] <= 400
+    assert np.allclose(pdist(shown), pdist(v))
+
+
+def test_delay_multiples_one_panel_per_delay(lorenz_rec):
+    layout = figures.delay_multiples(lorenz_rec, [2, 8, 16, 64])
+    assert [el.opts.get().kwargs["title"] for el in layout] == ["delay 2", "delay 8", "delay 16", "delay 64"]
+
+
+def test_recording_figures_render(lorenz_rec):
+    for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16),
+                figures.rotated_view(lorenz_rec, 16), figures.delay_multiples(lorenz_rec, [4, 16]),
+                figures.spectrum(None, {"time": 0.7, "strength": 0.3}, unit="s")):
+        assert hv.render(fig) is not None
