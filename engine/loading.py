@@ -310,12 +310,10 @@ def _fields(line: str, sep: str | None) -> list[str]:
 def _sniff(lines: list[str]) -> tuple[str | None, str]:
     """(separator, decimal mark) that split the sample lines consistently."""
     sample = lines[1:51] if len(lines) > 1 else lines
-    sep = None
-    for candidate in ("\t", ";", ",", "whitespace"):
-        counts = {len(_fields(ln, candidate)) for ln in sample}
-        if len(counts) == 1 and counts.pop() > 1:
-            sep = candidate
-            break
+    counts = {c: {len(_fields(ln, c)) for ln in sample} for c in ("\t", ";", ",", "whitespace")}
+    consistent = [c for c, n in counts.items() if len(n) == 1 and min(n) > 1]
+    everywhere = [c for c, n in counts.items() if min(n) > 1]  # ragged: let the reader say where
+    sep = (consistent or everywhere or [None])[0]
     decimal = "."
     if sep != ",":
         cells = [f for ln in sample for f in _fields(ln, sep)]

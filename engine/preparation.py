@@ -37,8 +37,8 @@ def _rebuild(rec: xr.Dataset, values, time=None, *, units=None, long_name=None, 
     attrs = dict(rec.attrs)
     if unit_of_time is not None:
         t_attrs["units"] = attrs["time_unit"] = unit_of_time
-    d = np.diff(t)
-    attrs["sampling_interval"] = float(np.median(d)) if d.size else float(attrs.get("sampling_interval", 1.0))
+    if time is not None and t.size > 1:
+        attrs["sampling_interval"] = float(np.median(np.diff(t)))
     return xr.Dataset(
         {name: ("time", np.asarray(values, dtype=float), var_attrs)},
         coords={"time": ("time", t, t_attrs)},
@@ -204,6 +204,8 @@ def _regularise_time(rec: xr.Dataset) -> xr.Dataset:
     if t.size < 2:
         return rec
     dt = float(np.median(np.diff(t)))
+    stated = float(rec.attrs.get("sampling_interval", dt))
+    dt = stated if abs(stated - dt) <= 1e-9 * dt else dt
     grid = t[0] + dt * np.arange(t.size)
     shift = float(np.max(np.abs(t - grid)))
     out = _rebuild(rec, signal(rec), grid)

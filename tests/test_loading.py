@@ -1,0 +1,300 @@
+"""Loading: every format, written by the reference libraries that define it, reads back exactly.
+
+The outside references are the writers themselves (xarray's h5netcdf and scipy
+NetCDF engines, numpy.save, scipy.io.wavfile, pandas.DataFrame.to_csv) and
+hashlib for the SHA-256.
+"""
+
+import hashlib
+import io
+import json
+import pickle
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from scipy.io import wavfile
+
+from engine.errors import LagspaceError, RecordingError
+from engine.loading import describe_source, load_recording
+from engine.recording import sampling_interval, signal, time_unit, variable_name
+
+from systems import lorenz, sine, white_noise
+
+N = 2000
+
+
+def one_line(exc_info):
+    msg = str(exc_info.value)
+    assert "\n" not in msg and msg
+    return msg
+
+
+@pytest.fixture(scope="module")
+def x():
+    return np.asarray(lorenz(N))
+
+
+# -- text ------------------------------------------------------------------------
+
+
+def test_csv_with_header_and_time(tmp_path, x):
+    t = 0.01 * np.arange(N)
+    path = tmp_path / "rig.csv"
+    pd.DataFrame({"time [s]": t, "strain [ue]": x}).to_csv(path, index=False)  # writer: pandas
+    rec = load_recording(path)
+    name = variable_name(rec)
+    assert name == "strain" and rec[name].attrs["units"] == "ue"
+    np.testing.assert_allclose(signal(rec), x, rtol=1e-14)
+    np.testing.assert_allclose(rec["time"].values, t, rtol=1e-14)
+    assert time_unit(rec) == "s" and sampling_interval(rec) == pytest.approx(0.01)
+    assert rec.attrs["source"] == "rig.csv"
+    # the hash is of the file's bytes (reference: hashlib)
+    assert rec.attrs["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert isinstance(json.loads(rec.attrs["checks"]), list)
+
+
+def test_csv_without_header_or_time(x):
+    data = "\n".join(f"{v:.17g}" for v in x).encode()
+    rec = load_recording(data, name="plain.txt")
+    np.testing.assert_array_equal(signal(rec), x)
+    assert time_unit(rec) == "sample" and sampling_interval(rec) == 1.0
+    np.testing.assert_array_equal(rec["time"].values, np.arange(N))
+
+
+def test_sampling_interval_sets_seconds(x):
+    data = "\n".join(f"{v:.17g}" for v in x).encode()
+    rec = load_recording(data, name="plain.txt", sampling_interval=0.002)
+    assert time_unit(rec) == "s" and sampling_interval(rec) == 0.002
+    np.testing.assert_allclose(rec["time"].values, 0.002 * np.arange(N))
+
+
+def test_tsv_and_units_in_parentheses(x):
+    frame = pd.DataFrame({"t (ms)": 5.0 * np.arange(N), "temp (K)": 300 + x, "pressure (Pa)": 2 * x})
+    data = frame.to_csv(sep="\t", index=False).encode()
+    info = describe_source(data, name="loop.tsv")
+    assert info["variables"] == ["temp", "pressure"] and info["needs_variable"]
+    assert info["time_columns"] == ["t (ms)"]
+    with pytest.raises(RecordingError) as err:
+        load_recording(data, name="loop.tsv")
+    assert "temp" in one_line(err) and "pressure" in str(err.value)
+    rec = load_recording(data, name="loop.tsv", variable="temp")
+    assert rec["temp"].attrs["units"] == "K"
+    np.testing.assert_allclose(signal(rec), 300 + x, rtol=1e-14)
+    # milliseconds become seconds
+    assert time_unit(rec) == "s" and sampling_interval(rec) == pytest.approx(0.005)
+    by_index = load_recording(data, name="loop.tsv", variable=2)  # file column 2
+    np.testing.assert_allclose(signal(by_index), 2 * x, rtol=1e-14)
+
+
+def test_whitespace_semicolon_and_decimal_comma(x):
+    lines = ["time [s]  strain [ue]"] + [f"{0.1 * k:.1f}   {v:.6f}" for k, v in enumerate(x)]
+    rec = load_recording("\n".join(lines).encode(), name="rig.dat")
+    assert variable_name(rec) == "strain" and rec["strain"].attrs["units"] == "ue"
+    np.testing.assert_allclose(signal(rec), x, atol=1e-6)
+    european = ["Zeit;Wert"] + [f"{k};{v:.6f}".replace(".", ",") for k, v in enumerate(x)]
+    rec = load_recording("\n".join(european).encode(), name="messung.csv")
+    np.testing.assert_allclose(signal(rec), x, atol=1e-6)
+
+
+def test_windows_line_endings_comments_trailing_column(x):
+    body = "# logged by the rig\r\ntime,value,\r\n" + "".join(f"{k},{v:.17g},\r\n" for k, v in enumerate(x[:600]))
+    rec = load_recording(body.encode(), name="win.csv")
+    assert list(rec.data_vars) == ["value"]
+    np.testing.assert_array_equal(signal(rec), x[:600])
+
+
+def test_datetime_time_column(x):
+    stamps = pd.date_range("2024-03-01 12:00:00", periods=600, freq="250ms")  # reference: pandas
+    frame = pd.DataFrame({"timestamp": stamps.strftime("%Y-%m-%d %H:%M:%S.%f"), "level": x[:600]})
+    rec = load_recording(frame.to_csv(index=False).encode(), name="log.csv")
+    assert time_unit(rec) == "s"
+    np.testing.assert_allclose(rec["time"].values, 0.25 * np.arange(600), atol=1e-9)
+
+
+def test_names_then_units_rows():
+    rows = "time,temp\ns,K\n" + "".join(f"{k},{300 + k % 7}\n" for k in range(600))
+    rec = load_recording(rows.encode(), name="two_headers.csv")
+    assert rec["temp"].attrs["units"] == "K" and time_unit(rec) == "s"
+
+
+def test_first_column_increasing_is_time():
+    t = np.cumsum(np.full(600, 0.5))
+    data = "\n".join(f"{a},{b}" for a, b in zip(t, white_noise(600))).encode()
+    info = describe_source(data, name="two.csv")
+    assert info["time_columns"] == ["column_0"] and info["variables"] == ["column_1"]
+    np.testing.assert_array_equal(load_recording(data, name="two.csv")["time"].values, t)
+    chosen = load_recording(data, name="two.csv", time_column=None, variable="column_1")
+    assert variable_name(chosen) == "column_1"
+
+
+# -- binary formats ------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("engine, label", [("h5netcdf", "NetCDF4"), ("scipy", "NetCDF3")])
+def test_netcdf_both_kinds(tmp_path, x, engine, label):
+    ds = xr.Dataset(
+        {"temperature": ("time", 300 + x, {"units": "K", "long_name": "loop temperature"}),
+         "heater": ("time", np.ones(N), {"units": "W"}),
+         "map": (("time", "probe"), np.zeros((N, 3)))},
+        coords={"time": ("time", 0.1 * np.arange(N), {"units": "s"})},
+    )
+    path = tmp_path / f"loop_{engine}.nc"
+    ds.to_netcdf(path, engine=engine)  # writer: xarray
+    info = describe_source(path)
+    assert info == {"format": label, "variables": ["temperature", "heater"], "time_columns": ["time"],
+                    "needs_variable": True}
+    rec = load_recording(path, variable="temperature")
+    np.testing.assert_allclose(signal(rec), 300 + x, rtol=1e-14)
+    assert rec["temperature"].attrs["units"] == "K" and rec.attrs["format"] == label
+    assert sampling_interval(rec) == pytest.approx(0.1) and time_unit(rec) == "s"
+    from_bytes = load_recording(path.read_bytes(), name="upload/dir/loop.nc", variable=0)
+    assert from_bytes.attrs["source"] == "loop.nc"
+    np.testing.assert_array_equal(signal(from_bytes), signal(rec))
+    with pytest.raises(RecordingError) as err:
+        load_recording(path)
+    assert "temperature" in one_line(err)
+
+
+@pytest.mark.parametrize("engine", ["h5netcdf", "scipy"])
+def test_netcdf_cf_datetime(x, engine):
+    ds = xr.Dataset({"v": ("time", x[:600])},
+                    coords={"time": pd.date_range("2024-01-01", periods=600, freq="20ms")})
+    rec = load_recording(bytes(ds.to_netcdf(engine=engine)), name="cf.nc")
+    assert time_unit(rec) == "s"
+    np.testing.assert_allclose(rec["time"].values, 0.02 * np.arange(600), atol=1e-12)
+
+
+def test_npy_one_and_two_dimensional(x):
+    def saved(arr, **kw):
+        buf = io.BytesIO()
+        np.save(buf, arr, **kw)  # writer: numpy
+        return buf.getvalue()
+
+    np.testing.assert_array_equal(signal(load_recording(saved(x), name="a.npy")), x)
+    t = 0.01 * np.arange(N)
+    rec = load_recording(saved(np.column_stack([t, x])), name="b.npy")
+    np.testing.assert_array_equal(rec["time"].values, t)
+    np.testing.assert_array_equal(signal(rec), x)
+    cols = np.column_stack([x, -x, 2 * x])
+    np.testing.assert_array_equal(signal(load_recording(saved(cols), name="c.npy", variable=2)), 2 * x)
+    with pytest.raises(RecordingError) as err:
+        load_recording(saved(cols), name="c.npy")
+    assert "column_2" in one_line(err)
+
+
+def test_pickled_npy_refused_and_never_unpickled():
+    class Trap:
+        def __reduce__(self):
+            return (pytest.fail, ("the loader unpickled an upload",))
+
+    buf = io.BytesIO()
+    np.save(buf, np.array([Trap(), 1.0], dtype=object), allow_pickle=True)
+    with pytest.raises(RecordingError) as err:
+        load_recording(buf.getvalue(), name="evil.npy")
+    assert "unpickled" in one_line(err)
+    with pytest.raises(RecordingError):
+        load_recording(pickle.dumps([1.0, 2.0]), name="evil.npy")
+
+
+def test_wav_mono_and_stereo():
+    mono = (sine(N, 40) * 12000).astype(np.int16)
+    buf = io.BytesIO()
+    wavfile.write(buf, 8000, mono)  # writer: scipy.io.wavfile
+    rec = load_recording(buf.getvalue(), name="mic.wav")
+    np.testing.assert_array_equal(signal(rec), mono)
+    assert sampling_interval(rec) == pytest.approx(1 / 8000) and time_unit(rec) == "s"
+    assert rec[variable_name(rec)].attrs["units"] == "1"
+    stereo = np.column_stack([mono, -mono])
+    buf = io.BytesIO()
+    wavfile.write(buf, 44100, stereo)
+    with pytest.raises(RecordingError) as err:
+        load_recording(buf.getvalue(), name="pair.wav")
+    assert "channel_1" in one_line(err)
+    right = load_recording(buf.getvalue(), name="pair.wav", channel=1)
+    np.testing.assert_array_equal(signal(right), -mono.astype(float))
+    assert describe_source(buf.getvalue(), name="pair.wav")["variables"] == ["channel_0", "channel_1"]
+
+
+def test_extension_missing_is_sniffed(x):
+    buf = io.BytesIO()
+    np.save(buf, x)
+    np.testing.assert_array_equal(signal(load_recording(buf.getvalue())), x)
+    assert load_recording(buf.getvalue()).attrs["source"] == "upload"
+
+
+# -- bad inputs: one line, what is wrong and what would work ----------------------------
+
+BAD = {
+    "empty": (b"", "empty.csv", "empty"),
+    "blank": (b"\n \n\n", "blank.csv", "empty"),
+    "header only": (b"time,value\n", "h.csv", "no data rows"),
+    "comments only": (b"# nothing\n# here\n", "c.csv", "comments"),
+    "words": (b"the quick brown\nfox jumps over\n", "w.txt", "no numeric column"),
+    "random bytes": (np.random.default_rng(0).bytes(4000), "r.bin", "not a recognised format"),
+    "misnamed": (b"hello", "x.nc", "does not start like"),
+    "ragged": (b"1,2\n3,4\n5,6,7\n", "r.csv", "same columns"),
+    "word in numbers": (b"v\n1\n2\noops\n4\n5\n", "n.csv", "oops"),
+    "complex npy": (None, "z.npy", "not real numbers"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD))
+def test_bad_inputs_give_one_line(case):
+    data, name, words = BAD[case]
+    if data is None:
+        buf = io.BytesIO()
+        np.save(buf, np.arange(5) + 1j)
+        data = buf.getvalue()
+    with pytest.raises(LagspaceError) as err:
+        load_recording(data, name=name)
+    assert words in one_line(err)
+
+
+def test_limits(tmp_path, x):
+    path = tmp_path / "big.csv"
+    path.write_text("\n".join(f"{v:.17g}" for v in x))
+    with pytest.raises(RecordingError) as err:
+        load_recording(path, max_bytes=1000)
+    assert "max_bytes" in one_line(err)
+    with pytest.raises(RecordingError) as err:
+        load_recording(path, max_samples=100)
+    assert "max_samples" in one_line(err)
+    buf = io.BytesIO()
+    np.save(buf, x)
+    with pytest.raises(RecordingError) as err:
+        load_recording(buf.getvalue(), name="a.npy", max_samples=100)
+    assert "max_samples" in one_line(err)
+
+
+def test_argument_errors(tmp_path, x):
+    with pytest.raises(RecordingError) as err:
+        load_recording(tmp_path / "missing.csv")
+    assert "not found" in one_line(err) and str(tmp_path) not in str(err.value)
+    data = "\n".join(f"{v:.17g}" for v in x).encode()
+    for bad in (0, -1.0, float("nan"), "fast"):
+        with pytest.raises(RecordingError) as err:
+            load_recording(data, name="a.csv", sampling_interval=bad)
+        one_line(err)
+    with pytest.raises(RecordingError) as err:
+        load_recording(data, name="a.csv", variable="nope")
+    assert "column_0" in one_line(err)
+    with pytest.raises(RecordingError):
+        load_recording(data, name="a.csv", variable=0, channel=0)
+    with pytest.raises(RecordingError):
+        load_recording(12345)
+
+
+def test_demo_files_load():
+    import pathlib
+
+    here = pathlib.Path(__file__).resolve().parent.parent / "demo_data"
+    total = 0
+    for path, unit in [("thermosyphon_thermocouple.nc", "K"), ("magnetoelastic_beam_strain.csv", "ue"),
+                       ("pump_vibration.csv", "m s-2")]:
+        rec = load_recording(here / path)
+        assert rec[variable_name(rec)].attrs["units"] == unit
+        assert not [f for f in json.loads(rec.attrs["checks"]) if f["severity"] == "refuse"]
+        total += (here / path).stat().st_size
+    assert total < 2_000_000
