@@ -18,6 +18,7 @@ import xarray as xr
 import scipy.fft
 from scipy import signal as sps
 
+from .arguments import as_series, positive_number, whole_number
 from .errors import LagspaceError
 from .kernels.delay import lagged_mutual_information
 
@@ -27,31 +28,6 @@ PERIOD_TOLERANCE = 0.1  # warn when the delay is within 10 % of a multiple of th
 MINIMUM_WINDOW = 2  # a minimum must be the lowest value within +-2 lags
 SHALLOW = 0.1  # a minimum below this fraction of the lag-1 value is flagged as shallow
 NOISE_FACTOR = 3.0  # standard deviations that make a level or a rise "clear"
-
-
-def as_series(x, minimum: int = 16, what: str = "the series") -> np.ndarray:
-    """``x`` (array-like or Recording) as a finite, non-constant float64 1-D array."""
-    if isinstance(x, xr.Dataset):
-        from .recording import signal
-
-        x = signal(x)
-    x = np.ascontiguousarray(x, dtype=np.float64)
-    if x.ndim != 1:
-        raise LagspaceError(f"{what} must be one channel (1-D), got shape {x.shape}; pick one column")
-    if x.size < minimum:
-        raise LagspaceError(f"{what} has {x.size} samples; need at least {minimum}: use a longer recording")
-    if not np.all(np.isfinite(x)):
-        raise LagspaceError(f"{what} contains NaN or infinite values; fill or crop the gaps first")
-    if np.ptp(x) == 0:
-        raise LagspaceError(f"{what} is constant; a constant signal carries no dynamics to embed")
-    return x
-
-
-def _check_max_lag(max_lag, n: int) -> int:
-    limit = n // 2 - 1
-    if isinstance(max_lag, bool) or int(max_lag) != max_lag or not 1 <= max_lag <= limit:
-        raise LagspaceError(f"max_lag must be a whole number between 1 and {limit} (half the {n} samples), got {max_lag!r}")
-    return int(max_lag)
 
 
 def _first_below(values: np.ndarray, level: float):
@@ -73,7 +49,7 @@ def autocorrelation(x, max_lag: int) -> xr.Dataset:
     Box, Jenkins & Reinsel, *Time Series Analysis*, Wiley (2008), sec. 2.1.
     """
     x = as_series(x)
-    max_lag = _check_max_lag(max_lag, x.size)
+    max_lag = whole_number("max_lag", max_lag, 1, x.size - 1)
     d = x - x.mean()
     size = scipy.fft.next_fast_len(2 * x.size - 1, real=True)
     spectrum = np.fft.rfft(d, size)
@@ -142,12 +118,8 @@ def mutual_information(x, max_lag: int, bins: int | None = None) -> xr.Dataset:
     Roulston, Physica D 125 (1999) 285.
     """
     x = as_series(x)
-    max_lag = _check_max_lag(max_lag, x.size)
-    if bins is None:
-        bins = default_bins(x.size)
-    elif isinstance(bins, bool) or int(bins) != bins or not 2 <= bins <= 4096:
-        raise LagspaceError(f"bins must be a whole number between 2 and 4096 (or None to choose), got {bins!r}")
-    bins = int(bins)
+    max_lag = whole_number("max_lag (at most half the samples)", max_lag, 1, x.size // 2)
+    bins = default_bins(x.size) if bins is None else whole_number("bins", bins, 2, 4096)
     noise = (bins - 1) / (math.sqrt(2.0) * x.size)
     info, bias = lagged_mutual_information(equiprobable_bins(x, bins), bins, np.arange(max_lag + 1))
     facts = {
@@ -180,7 +152,7 @@ def dominant_period(x, sampling_interval: float = 1.0) -> dict:
     Welch, IEEE Trans. Audio Electroacoust. 15 (1967) 70.
     """
     x = as_series(x)
-    dt = _check_interval(sampling_interval)
+    dt = positive_number("sampling_interval", sampling_interval)
     nperseg = int(min(x.size, 2 ** max(6, round(math.log2(x.size / 8.0)))))
     freq, power = sps.welch(x, nperseg=nperseg)
     k = 1 + int(np.argmax(power[1:]))
@@ -197,12 +169,6 @@ def dominant_period(x, sampling_interval: float = 1.0) -> dict:
     return {"samples": float(samples), "time": float(samples * dt), "strength": strength}
 
 
-def _check_interval(sampling_interval) -> float:
-    if isinstance(sampling_interval, bool) or not isinstance(sampling_interval, (int, float)) or not sampling_interval > 0:
-        raise LagspaceError(f"sampling_interval must be a positive number, got {sampling_interval!r}")
-    return float(sampling_interval)
-
-
 def period_warning(delay: int, period: float, strength: float) -> str | None:
     """A warning when ``delay`` sits within 10 % of a multiple of half the period.
 
@@ -216,8 +182,7 @@ def period_warning(delay: int, period: float, strength: float) -> str | None:
     multiple = round(delay / half)
     if multiple < 1 or abs(delay / half - multiple) > PERIOD_TOLERANCE:
         return None
-    which = "the period" if multiple == 2 else f"{multiple / 2:g} periods" if multiple % 2 == 0 else (
-        "half the period" if multiple == 1 else f"{multiple} half-periods")
+    which = {1: "half the period", 2: "the period"}.get(multiple, f"{multiple / 2:g} periods")
     return (
         f"delay {delay} samples is close to {which} of the dominant oscillation ({period:.4g} samples, "
         f"{strength:.0%} of the power): delay vectors fold onto a line there; prefer about a quarter period "
@@ -255,7 +220,7 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
     ----------
     Fraser & Swinney, Phys. Rev. A 33 (1986) 1134.
     """
-    dt = _check_interval(sampling_interval)
+    dt = positive_number("sampling_interval", sampling_interval)
     for ds, name in ((ami_ds, "mutual_information"), (acf_ds, "autocorrelation")):
         if not isinstance(ds, xr.Dataset) or name not in ds:
             raise LagspaceError(f"suggest_delay needs the dataset returned by {name}(); got {type(ds).__name__}")
@@ -272,8 +237,8 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
         if m[lag] < SHALLOW * m[1]:
             warnings.append(
                 f"the minimum is shallow ({m[lag]:.2g} nats, under a tenth of the lag-1 value), where the curve "
-                f"is nearly flat and its wiggles are mostly sampling noise; the autocorrelation drops below 1/e "
-                f"at lag {times['one_over_e']}")
+                f"is nearly flat and its wiggles are mostly sampling noise; compare the autocorrelation "
+                f"alternatives")
     else:
         why = (f"the mutual information decays to the level of independent values "
                f"({facts['independence_level']:.2g} nats) "

@@ -16,13 +16,14 @@ from __future__ import annotations
 
 import json
 import math
+import numbers
 from typing import NamedTuple
 
 import numpy as np
 import scipy.sparse
 import xarray as xr
 
-from .delay import as_series
+from .arguments import as_series, whole_number
 from .embedding import check_embedding, embedded_length
 from .errors import LagspaceError
 from .kernels.recurrence import line_histograms, pair_distances, recurrence_matrix
@@ -64,12 +65,6 @@ def _radius_for_rate(x, dimension, delay, n, theiler, rate, seed) -> float:
     return float(np.partition(d, k - 1)[k - 1])
 
 
-def _check_whole(name, value, low):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-        raise LagspaceError(f"{name} must be a whole number >= {low}, got {value!r}")
-    return int(value)
-
-
 def recurrence_plot(x, delay: int, dimension: int, rate: float = 0.05, radius: float | None = None,
                     max_points: int = 4000, theiler: int = 0, seed: int = 0) -> RecurrencePlot:
     """Sparse recurrence matrix of the first ``max_points`` delay vectors.
@@ -90,18 +85,18 @@ def recurrence_plot(x, delay: int, dimension: int, rate: float = 0.05, radius: f
     x = as_series(x)
     check_embedding(x.size, dimension, delay, minimum=3)
     delay, dimension = int(delay), int(dimension)
-    max_points = _check_whole("max_points", max_points, 3)
-    theiler = _check_whole("theiler", theiler, 0)
-    seed = _check_whole("seed", seed, 0)
+    max_points = whole_number("max_points", max_points, 3)
+    theiler = whole_number("theiler", theiler, 0)
+    seed = whole_number("seed", seed, 0)
     n = min(embedded_length(x.size, dimension, delay), max_points)
     pairs = _eligible_pairs(n, theiler)
     if pairs == 0:
         raise LagspaceError(f"a Theiler window of {theiler} leaves no pairs among {n} vectors; use a smaller window")
     if radius is None:
-        if isinstance(rate, bool) or not isinstance(rate, (int, float)) or not 0 < rate < 1:
+        if isinstance(rate, bool) or not isinstance(rate, numbers.Real) or not 0 < rate < 1:
             raise LagspaceError(f"rate must be a number between 0 and 1 (e.g. 0.05), got {rate!r}")
         radius = _radius_for_rate(x, dimension, delay, n, theiler, float(rate), seed)
-    elif isinstance(radius, bool) or not isinstance(radius, (int, float)) or not radius >= 0 or math.isinf(radius):
+    elif isinstance(radius, bool) or not isinstance(radius, numbers.Real) or not 0 <= radius < math.inf:
         raise LagspaceError(f"radius must be a finite number >= 0 in the units of the signal, got {radius!r}")
     indptr, indices = recurrence_matrix(x, dimension, delay, n, theiler, float(radius))
     data = np.ones(indices.size, dtype=bool)
@@ -142,7 +137,7 @@ def recurrence_quantification(x, delay: int, dimension: int, rate: float = 0.05,
     Marwan, Romano, Thiel & Kurths, Physics Reports 438 (2007) 237.
     Zbilut & Webber, Phys. Lett. A 171 (1992) 199.
     """
-    min_line = _check_whole("min_line", min_line, 2)
+    min_line = whole_number("min_line", min_line, 2)
     stage = Stage(progress, cancel)
     stage("recurrence plot: choosing the radius", 0.0)
     plot = recurrence_plot(x, delay, dimension, rate, radius, max_points, theiler, seed)

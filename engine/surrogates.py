@@ -16,12 +16,13 @@ Schreiber & Schmitz, Physica D 142 (2000) 346.
 from __future__ import annotations
 
 import json
+import numbers
 from concurrent.futures import ThreadPoolExecutor, as_completed
 
 import numpy as np
 import xarray as xr
 
-from .delay import as_series
+from .arguments import as_series, whole_number
 from .embedding import check_embedding
 from .errors import LagspaceError
 from .kernels.prediction import locally_constant_predictions
@@ -106,18 +107,6 @@ def _check_kind(kind) -> str:
     return kind
 
 
-def _check_count(count, minimum: int = 1) -> int:
-    if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < minimum:
-        raise LagspaceError(f"the number of surrogates must be a whole number >= {minimum}, got {count!r}")
-    return int(count)
-
-
-def _check_seed(seed) -> int:
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise LagspaceError(f"seed must be a whole number >= 0, got {seed!r}")
-    return int(seed)
-
-
 def _map_seeded(task, count: int, seed: int, stage: Stage, what: str) -> list:
     """``task(rng_k)`` for k < count, on WORKERS threads; surrogate k always gets
     ``SeedSequence(seed).spawn(count)[k]``, so results do not depend on threads."""
@@ -144,7 +133,7 @@ def surrogates(x, kind: str = "iaaft", count: int = 39, seed: int = 0, progress=
     """
     x = as_series(x)
     kind = _check_kind(kind)
-    count, seed = _check_count(count), _check_seed(seed)
+    count, seed = whole_number("count", count, 1), whole_number("seed", seed, 0)
     rows = _map_seeded(lambda rng: surrogate(x, kind, rng), count, seed, Stage(progress, cancel), f"{kind} surrogates")
     return np.stack(rows)
 
@@ -161,9 +150,8 @@ def time_asymmetry(x, lag: int = 1) -> float:
     Diks, van Houwelingen, Takens & DeGoede, Phys. Lett. A 201 (1995) 221.
     """
     x = as_series(x)
-    if isinstance(lag, bool) or int(lag) != lag or not 1 <= lag < x.size - 1:
-        raise LagspaceError(f"lag must be a whole number between 1 and {x.size - 2}, got {lag!r}")
-    d = x[int(lag):] - x[: -int(lag)]
+    lag = whole_number("lag", lag, 1, x.size - 2)
+    d = x[lag:] - x[:-lag]
     second = np.mean(d * d)
     if second == 0:
         raise LagspaceError(f"the series does not change over lag {lag}; time asymmetry is undefined")
@@ -188,19 +176,19 @@ def prediction_error(x, delay: int, dimension: int, theiler: int = 0, horizon: i
     Sugihara & May, Nature 344 (1990) 734.
     """
     x = as_series(x)
-    for name, value, low in (("theiler", theiler, 0), ("horizon", horizon, 1), ("points", points, 1)):
-        if isinstance(value, bool) or int(value) != value or value < low:
-            raise LagspaceError(f"{name} must be a whole number >= {low}, got {value!r}")
-    check_embedding(x.size - int(horizon), dimension, delay, minimum=2)
-    delay, dimension, theiler, horizon = int(delay), int(dimension), int(theiler), int(horizon)
-    neighbours = dimension + 1 if neighbours is None else neighbours
+    theiler, horizon = whole_number("theiler", theiler, 0), whole_number("horizon", horizon, 1)
+    points = whole_number("points", points, 1)
+    check_embedding(x.size - horizon, dimension, delay, minimum=2)
+    delay, dimension = int(delay), int(dimension)
     n = x.size - (dimension - 1) * delay - horizon
-    if isinstance(neighbours, bool) or int(neighbours) != neighbours or not 1 <= neighbours <= n - 2 * theiler - 1:
-        raise LagspaceError(
-            f"neighbours must be a whole number between 1 and {n - 2 * theiler - 1} (the candidates left "
-            f"outside the Theiler window of {theiler}), got {neighbours!r}; use fewer neighbours or a smaller window")
-    refs = np.unique(np.linspace(0, n - 1, min(int(points), n)).astype(np.int64))
-    predicted = locally_constant_predictions(x, dimension, delay, horizon, theiler, int(neighbours), refs)
+    candidates = n - 2 * theiler - 1
+    if candidates < 1:
+        raise LagspaceError(f"a Theiler window of {theiler} leaves no neighbours among {n} delay vectors; "
+                            f"use a smaller window or a longer recording")
+    neighbours = min(dimension + 1, candidates) if neighbours is None else whole_number(
+        "neighbours (within the vectors outside the Theiler window)", neighbours, 1, candidates)
+    refs = np.unique(np.linspace(0, n - 1, min(points, n)).astype(np.int64))
+    predicted = locally_constant_predictions(x, dimension, delay, horizon, theiler, neighbours, refs)
     actual = x[refs + (dimension - 1) * delay + horizon]
     return float(np.sqrt(np.mean((actual - predicted) ** 2)) / np.std(x))
 
@@ -231,7 +219,7 @@ def _rank_p_value(data: float, values: np.ndarray, sided: str, direction: str):
 
 
 def surrogate_test(x, *, kind: str = "iaaft", statistic: str = "prediction_error", count: int = 39, seed: int = 0,
-                   delay: int = 1, dimension: int = 2, theiler: int = 0, sided: str = "two", alpha: float = 0.05,
+                   delay: int, dimension: int, theiler: int = 0, sided: str = "two", alpha: float = 0.05,
                    progress=None, cancel=None) -> xr.Dataset:
     """Rank-based surrogate data test of the linear null hypothesis.
 
@@ -259,10 +247,10 @@ def surrogate_test(x, *, kind: str = "iaaft", statistic: str = "prediction_error
         raise LagspaceError(f"statistic must be one of {', '.join(STATISTICS)}, got {statistic!r}")
     if sided not in ("one", "two"):
         raise LagspaceError(f"sided must be 'one' or 'two', got {sided!r}")
-    if isinstance(alpha, bool) or not isinstance(alpha, (int, float)) or not 0 < alpha <= 0.5:
+    if isinstance(alpha, bool) or not isinstance(alpha, numbers.Real) or not 0 < alpha <= 0.5:
         raise LagspaceError(f"alpha must be a number in (0, 0.5], got {alpha!r}")
     needed = int(np.ceil((2.0 if sided == "two" else 1.0) / alpha - 1 - 1e-9))
-    count, seed = _check_count(count), _check_seed(seed)
+    count, seed = whole_number("count", count, 1), whole_number("seed", seed, 0)
     if count < needed:
         raise LagspaceError(f"a {sided}-sided test at alpha {alpha:g} needs at least {needed} surrogates, got {count}; "
                             f"use count >= {needed}" + (" or sided='one'" if sided == "two" else ""))

@@ -138,7 +138,9 @@ def test_white_noise_has_no_strong_period():
 @pytest.mark.parametrize(
     "call",
     [
-        lambda: autocorrelation(np.arange(100.0), 60),
+        lambda: autocorrelation(np.arange(100.0), 100),
+        lambda: mutual_information(np.arange(100.0), 51),
+        lambda: mutual_information(np.arange(100.0), "5"),
         lambda: autocorrelation(np.ones((10, 10)), 3),
         lambda: mutual_information(np.r_[np.arange(99.0), np.nan], 5),
         lambda: mutual_information(np.ones(100), 5),

@@ -124,7 +124,7 @@ def test_progress_and_cancel():
     stop = threading.Event()
     stop.set()
     with pytest.raises(Cancelled):
-        surrogate_test(x, kind="ft", count=39, cancel=stop)
+        surrogate_test(x, kind="ft", count=39, delay=1, dimension=2, cancel=stop)
 
 
 @pytest.mark.parametrize(
@@ -133,9 +133,10 @@ def test_progress_and_cancel():
         lambda x: surrogate(x, "shuffle"),
         lambda x: surrogates(x, "ft", count=0),
         lambda x: surrogates(x, "ft", count=3, seed=-1),
-        lambda x: surrogate_test(x, count=19),  # two-sided needs 39
-        lambda x: surrogate_test(x, count=39, sided="left"),
-        lambda x: surrogate_test(x, statistic="entropy"),
+        lambda x: surrogate_test(x, count=19, delay=1, dimension=2),  # two-sided needs 39
+        lambda x: surrogate_test(x, count=39, delay=1, dimension=2, sided="left"),
+        lambda x: surrogate_test(x, statistic="entropy", delay=1, dimension=2),
+        lambda x: surrogate_test(x, count=39, delay=1, dimension=2, alpha=0.9),
         lambda x: prediction_error(x, 0, 2),
         lambda x: prediction_error(x, 1, 2, theiler=300),
         lambda x: time_asymmetry(x, lag=0),
