@@ -34,6 +34,7 @@ from .errors import RecordingError
 from .recording import make_recording
 
 FORMATS = "CSV/TSV/TXT text, NetCDF 3 or 4 (.nc), .npy or .wav"
+FORMAT_NAMES = ("text", "netcdf", "npy", "wav")  # the "format" that describe_source reports
 
 # seconds per unit, for time units that have a fixed length
 _SECONDS = {
@@ -212,7 +213,7 @@ def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
         return _read_npy(data, base, time_column)
     if data[:4] == b"RIFF" and data[8:12] == b"WAVE":
         return _read_wav(data, base)
-    if ext in (".nc", ".nc3", ".nc4", ".cdf", ".h5", ".hdf5", ".npy", ".wav", ".npz"):
+    if ext in (".nc", ".nc3", ".nc4", ".cdf", ".h5", ".hdf5", ".npy", ".wav"):
         raise RecordingError(f"{base} does not start like a {ext} file (damaged or misnamed): give a {FORMATS} file")
     text = _decode(data)
     if text is None:
@@ -245,8 +246,6 @@ def _choose(contents: _Contents, variable) -> _Series:
     series = contents.series
     names = {s.name for _, s in series}
     listing = ", ".join(f"{i}: {s.name!r}" for i, s in series)
-    if not series:
-        raise RecordingError("the file has no channel to analyse")
     if variable is None:
         if len(series) > 1:
             raise RecordingError(f"the file has {len(series)} channels; choose one with variable (name or index): {listing}")
@@ -268,7 +267,7 @@ def _time_factor(units: str):
     u = units.strip()
     if u.lower() in _SECONDS:
         return _SECONDS[u.lower()], "s"
-    if u.lower() in _INDEX_NAMES or u.lower() in ("samples", "sample"):
+    if u.lower() in _INDEX_NAMES:
         return 1.0, "sample"
     return 1.0, (u or "unknown")
 
@@ -372,7 +371,7 @@ def _read_text(text: str, base: str, time_column, max_samples) -> _Contents:
         raise RecordingError(f"{base} could not be read as a table ({msg}): every row needs the same columns") from None
     names = _header_fields(head[0], sep, frame.shape[1]) if n_header else []
     units = _header_fields(head[1], sep, frame.shape[1]) if n_header == 2 else []
-    columns = []  # (file index, header field, kind, float values)
+    columns, words = [], ""  # (file index, header field, kind, float values); a word column, if any
     for k in range(frame.shape[1]):
         header = names[k] if k < len(names) else ""
         if k < len(units) and units[k] and not _split_units(header)[1]:
@@ -382,9 +381,12 @@ def _read_text(text: str, base: str, time_column, max_samples) -> _Contents:
             continue  # a trailing separator's empty column
         if kind != "text":
             columns.append((k, header, kind, values))
+        elif not words:
+            example = str(frame[k].dropna().iloc[0]) if frame[k].notna().any() else ""
+            words = f" (column {header or f'column_{k}'!r} holds words such as {example!r})"
     if not columns:
-        raise RecordingError(f"{base} has no numeric column: give a file of numbers, one sample per row")
-    return _table(columns, "text", time_column, base)
+        raise RecordingError(f"{base} has no numeric column{words}: give a file of numbers, one sample per row")
+    return _table(columns, "text", time_column, base, words)
 
 
 def _column_values(col: pd.Series, label: str, base: str):
@@ -401,7 +403,8 @@ def _column_values(col: pd.Series, label: str, base: str):
             warnings.simplefilter("ignore")
             stamps = pd.to_datetime(col, errors="coerce", format="ISO8601")
             if (stamps.isna().to_numpy() & present).any():
-                stamps = pd.to_datetime(col, errors="coerce", format="mixed")
+                dayfirst = bool(re.match(r"\d{1,2}\.\d{1,2}\.\d{2,4}", str(col[present].iloc[0]).strip()))
+                stamps = pd.to_datetime(col, errors="coerce", format="mixed", dayfirst=dayfirst)
         if not (stamps.isna().to_numpy() & present).any():
             seconds = (stamps - stamps.iloc[0]).dt.total_seconds()
             return "date", seconds.to_numpy(dtype=float)
@@ -422,7 +425,7 @@ def _is_time_name(header: str) -> bool:
     return stem in _TIME_NAMES or stem in _INDEX_NAMES or stem.startswith("time")
 
 
-def _table(columns, fmt: str, time_column, base: str) -> _Contents:
+def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Contents:
     """Pick the time column of a table and make one series per other column.
 
     ``columns`` holds (file index, header field, "number" | "date", values).
@@ -460,7 +463,9 @@ def _table(columns, fmt: str, time_column, base: str) -> _Contents:
         stem, units = _split_units(header) if header else (f"column_{k}", "")
         series.append((k, _Series(_safe_name(stem), values, units or "1", header or stem, time, time_unit)))
     if not series:
-        raise RecordingError(f"{base} holds only a time column ({chosen[1] or 'column 0'}): add a column of measured values")
+        raise RecordingError(
+            f"{base} holds only a time column ({chosen[1] or 'column_0'}){words}: add a column of measured values"
+        )
     return _Contents(fmt, series, [c[1] or f"column_{c[0]}" for c in candidates])
 
 
@@ -510,7 +515,7 @@ def _read_netcdf(data: bytes, base: str, engine: str) -> _Contents:
                 str(var.attrs.get("long_name", name)), time, time_unit,
             )))
         times = sorted({str(ds[name].dims[0]) for name in usable if ds[name].dims[0] in ds.coords})
-    return _Contents(label, series, times)
+    return _Contents("netcdf", series, times)
 
 
 def _netcdf_time(ds, dim, base):
@@ -579,4 +584,4 @@ def _read_wav(data: bytes, base: str) -> _Contents:
     return _Contents("wav", series, [])
 
 
-__all__ = ["load_recording", "describe_source", "FORMATS"]
+__all__ = ["load_recording", "describe_source", "FORMATS", "FORMAT_NAMES"]

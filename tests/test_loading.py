@@ -132,8 +132,8 @@ def test_first_column_increasing_is_time():
 # -- binary formats ------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("engine, label", [("h5netcdf", "NetCDF4"), ("scipy", "NetCDF3")])
-def test_netcdf_both_kinds(tmp_path, x, engine, label):
+@pytest.mark.parametrize("engine, magic", [("h5netcdf", b"\x89HDF"), ("scipy", b"CDF")])
+def test_netcdf_both_kinds(tmp_path, x, engine, magic):
     ds = xr.Dataset(
         {"temperature": ("time", 300 + x, {"units": "K", "long_name": "loop temperature"}),
          "heater": ("time", np.ones(N), {"units": "W"}),
@@ -142,12 +142,13 @@ def test_netcdf_both_kinds(tmp_path, x, engine, label):
     )
     path = tmp_path / f"loop_{engine}.nc"
     ds.to_netcdf(path, engine=engine)  # writer: xarray
+    assert path.read_bytes().startswith(magic)  # NetCDF4 is HDF5 inside; NetCDF3 is classic
     info = describe_source(path)
-    assert info == {"format": label, "variables": ["temperature", "heater"], "time_columns": ["time"],
+    assert info == {"format": "netcdf", "variables": ["temperature", "heater"], "time_columns": ["time"],
                     "needs_variable": True}
     rec = load_recording(path, variable="temperature")
     np.testing.assert_allclose(signal(rec), 300 + x, rtol=1e-14)
-    assert rec["temperature"].attrs["units"] == "K" and rec.attrs["format"] == label
+    assert rec["temperature"].attrs["units"] == "K" and rec.attrs["format"] == "netcdf"
     assert sampling_interval(rec) == pytest.approx(0.1) and time_unit(rec) == "s"
     from_bytes = load_recording(path.read_bytes(), name="upload/dir/loop.nc", variable=0)
     assert from_bytes.attrs["source"] == "loop.nc"
@@ -298,3 +299,35 @@ def test_demo_files_load():
         assert not [f for f in json.loads(rec.attrs["checks"]) if f["severity"] == "refuse"]
         total += (here / path).stat().st_size
     assert total < 2_000_000
+
+
+# -- file shapes met in practice ---------------------------------------------------------
+
+
+def test_odd_but_sensible_shapes():
+    values = np.round(np.asarray(lorenz(600)), 4)
+    stamps = pd.date_range("2024-01-31 23:55", periods=600, freq="1s").strftime("%d.%m.%Y %H:%M:%S")
+    german = "Datum;Temperatur [°C]\n" + "".join(f"{d};{str(v).replace('.', ',')}\n" for d, v in zip(stamps, values))
+    rec = load_recording(german.encode("cp1252"), name="messung.csv")
+    # day-first dates across midnight into February: one second apart (reference: pandas date_range)
+    np.testing.assert_allclose(rec["time"].values, np.arange(600.0))
+    assert rec[variable_name(rec)].attrs["units"] == "°C"
+    np.testing.assert_allclose(signal(rec), values)
+    utf16 = ("time\tvalue\r\n" + "".join(f"{k}\t{v}\r\n" for k, v in enumerate(values))).encode("utf-16")
+    np.testing.assert_allclose(signal(load_recording(utf16, name="excel.txt")), values)
+    old_mac = ("time,value\r" + "".join(f"{k},{v}\r" for k, v in enumerate(values))).encode()
+    np.testing.assert_allclose(signal(load_recording(old_mac, name="mac.csv")), values)
+
+
+def test_blank_entries_are_missing_and_refused_until_filled():
+    rows = "time,value\n" + "".join(f"{k},{'' if k == 300 else np.sin(k / 9)}\n" for k in range(600))
+    rec = load_recording(rows.encode(), name="gap.csv")
+    assert np.isnan(signal(rec)[300]) and np.isfinite(np.delete(signal(rec), 300)).all()
+    (finding,) = [f for f in json.loads(rec.attrs["checks"]) if f["code"] == "not_finite"]
+    assert finding["severity"] == "refuse" and "fill" in finding["fix"]
+
+
+def test_words_in_a_numeric_column_are_named():
+    with pytest.raises(RecordingError) as err:
+        load_recording(b'"time","value"\n"0","1,234.5"\n"1","1,300.0"\n', name="thousands.csv")
+    assert "1,234.5" in one_line(err)
