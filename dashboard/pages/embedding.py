@@ -1,0 +1,171 @@
+"""Page 2 · Delay & dimension: the curves behind the suggested delay and embedding dimension,
+their reasons, the user's overrides, and views of the reconstructed state space."""
+
+from __future__ import annotations
+
+import panel as pn
+import param
+
+from engine.recording import json_attr, time_unit
+
+from .. import figures, style
+from ..state import SessionState
+from .common import card, esc, estimate_if_ready, run, with_unit
+
+
+def _reason_html(value_text: str, est: dict) -> str:
+    method = est.get("method") or ""
+    parts = [f"<div class='big-number'>{esc(value_text)}</div>",
+             f"<p><b>Why:</b> {esc(est.get('reason') or 'no reason given')}</p>"]
+    if method:
+        parts.append(f"<p><small>Method: {esc(method)}</small></p>")
+    suggested = est.get("suggested")
+    if suggested:
+        parts.append(f"<p><small>The data alone suggested: {esc(suggested.get('reason', ''))}</small></p>")
+    for w in est.get("warnings") or []:
+        parts.append(f"<p class='warning-text'>⚠ {esc(w)}</p>")
+    return "".join(parts)
+
+
+class EmbeddingPage(pn.viewable.Viewer):
+    title = "2 · Delay & dimension"
+    state = param.ClassSelector(class_=SessionState)
+
+    def __init__(self, **params):
+        super().__init__(**params)
+        s = self.state
+        self._estimate = pn.widgets.Button(name="Estimate delay and dimension", button_type="primary", width=260)
+        self._estimate.on_click(self._on_estimate)
+        self._intro = pn.pane.HTML(sizing_mode="stretch_width")
+
+        self._delay_text = pn.pane.HTML(sizing_mode="stretch_width")
+        self._delay_in = pn.widgets.IntInput(name="Use this delay (samples)", start=1, value=None, width=200)
+        self._delay_use = pn.widgets.Button(name="Use", width=70, align="end")
+        self._delay_back = pn.widgets.Button(name="Back to the suggestion", width=190, align="end")
+        self._delay_use.on_click(lambda e: self._override(delay=self._delay_in.value))
+        self._delay_back.on_click(lambda e: self._override(delay=None))
+
+        self._dim_text = pn.pane.HTML(sizing_mode="stretch_width")
+        self._dim_in = pn.widgets.IntInput(name="Use this dimension", start=1, end=30, value=None, width=200)
+        self._dim_use = pn.widgets.Button(name="Use", width=70, align="end")
+        self._dim_back = pn.widgets.Button(name="Back to the suggestion", width=190, align="end")
+        self._dim_use.on_click(lambda e: self._override(dimension=self._dim_in.value))
+        self._dim_back.on_click(lambda e: self._override(dimension=None))
+
+        self._delay_curves = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._dim_curves = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._delay_plot = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._turn = pn.widgets.IntSlider(name="Turn (°)", start=-180, end=180, value=30, step=5)
+        self._tilt = pn.widgets.IntSlider(name="Tilt (°)", start=-90, end=90, value=20, step=5)
+        self._view3d = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._multiples = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._space_time = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._space_time_text = pn.pane.HTML(sizing_mode="stretch_width")
+        self._theiler_in = pn.widgets.IntInput(name="Use this Theiler window (samples)", start=0, value=None,
+                                               width=240)
+        self._theiler_use = pn.widgets.Button(name="Use", width=70, align="end")
+        self._theiler_back = pn.widgets.Button(name="Back to the suggestion", width=190, align="end")
+        self._theiler_use.on_click(lambda e: self._override(theiler=self._theiler_in.value))
+        self._theiler_back.on_click(lambda e: self._override(theiler=None))
+
+        s.param.watch(self._show, ["diagnostics", "prepared", "busy", "settings"])
+        s.param.watch(self._show_space_time, ["analysis"])
+        self._turn.param.watch(self._show_view3d, "value_throttled")
+        self._tilt.param.watch(self._show_view3d, "value_throttled")
+        self._show()
+        self._show_space_time()
+
+    # -- callbacks ----------------------------------------------------------------------------------
+    async def _on_estimate(self, event):
+        await run(self.state, self.state.estimate)
+
+    async def _override(self, **changes):
+        if await run(self.state, self.state.change_settings, **changes):
+            await estimate_if_ready(self.state)
+
+    # -- views --------------------------------------------------------------------------------------
+    def _delay(self):
+        diag = self.state.diagnostics
+        return None if diag is None else json_attr(diag, "delay", {}).get("samples")
+
+    def _show(self, *events):
+        s = self.state
+        diag, rec = s.diagnostics, s.prepared
+        for w in (self._estimate, self._delay_use, self._delay_back, self._dim_use, self._dim_back,
+                  self._theiler_use, self._theiler_back):
+            w.disabled = s.busy
+        if rec is None:
+            self._intro.object = "<p>Load a recording on page 1 first.</p>"
+        elif diag is None:
+            self._intro.object = ("<p>Press the button to estimate the delay and the embedding dimension "
+                                  "from the recording.</p>")
+        elif not s.diagnostics_current:
+            self._intro.object = "<p class='warning-text'>The settings changed since this estimate: estimate again.</p>"
+        else:
+            self._intro.object = ("<p>Suggestions come from the curves below; each has its reason. "
+                                  "Override them only with a reason of your own.</p>")
+        self._estimate.visible = rec is not None and (diag is None or not s.diagnostics_current)
+        if diag is None:
+            self._delay_text.object = self._dim_text.object = ""
+            for pane in (self._delay_curves, self._dim_curves, self._delay_plot, self._view3d, self._multiples):
+                pane.object = None
+            return
+        d = json_attr(diag, "delay", {})
+        unit = time_unit(rec) if rec is not None else "sample"
+        tau = d.get("samples")
+        delay_value = f"{tau} samples" + ("" if unit == "sample" else f" = {with_unit(d.get('time'), unit)}")
+        self._delay_text.object = _reason_html(delay_value, d)
+        m = json_attr(diag, "embedding_dimension", {})
+        self._dim_text.object = _reason_html(f"{m.get('value')}", m)
+        self._delay_in.placeholder = str(tau)
+        self._dim_in.placeholder = str(m.get("value"))
+        self._delay_curves.object = figures.delay_curves(diag)
+        self._dim_curves.object = figures.dimension_curves(diag)
+        if rec is not None and tau:
+            self._delay_plot.object = figures.delay_plot(rec, tau)
+            self._multiples.object = figures.delay_multiples(rec, _delay_steps(tau))
+            self._show_view3d()
+
+    def _show_view3d(self, *events):
+        rec, tau = self.state.prepared, self._delay()
+        if rec is not None and tau:
+            self._view3d.object = figures.rotated_view(rec, tau, azimuth=self._turn.value, elevation=self._tilt.value)
+
+    def _show_space_time(self, *events):
+        a = self.state.analysis
+        if a is None or a.results is None:
+            self._space_time.object = None
+            self._space_time_text.object = ("<p>The space-time separation plot and the Theiler window are "
+                                            "computed with the invariants: press Run on page 3.</p>")
+            return
+        w = a.summary.get("theiler_window") or {}
+        unit = a.summary.get("input", {}).get("time_unit", "sample")
+        self._space_time.object = figures.space_time(a.results, w.get("samples"))
+        value = f"{w.get('samples')} samples" + ("" if unit == "sample" else f" = {with_unit(w.get('time'), unit)}")
+        self._space_time_text.object = _reason_html(value, w)
+        self._theiler_in.placeholder = str(w.get("samples"))
+
+    def __panel__(self):
+        delay_card = card("Delay", self._delay_text, pn.Row(self._delay_in, self._delay_use, self._delay_back),
+                          sizing_mode="stretch_width")
+        dim_card = card("Embedding dimension", self._dim_text, pn.Row(self._dim_in, self._dim_use, self._dim_back),
+                        sizing_mode="stretch_width")
+        return pn.Column(
+            pn.Row(self._intro, self._estimate, sizing_mode="stretch_width"),
+            pn.Row(delay_card, dim_card, sizing_mode="stretch_width"),
+            pn.Row(card("Mutual information and autocorrelation", self._delay_curves, sizing_mode="stretch_width"),
+                   card("False nearest neighbours and Cao's test", self._dim_curves, sizing_mode="stretch_width"),
+                   sizing_mode="stretch_width"),
+            pn.Row(card("Delay plot", self._delay_plot, sizing_mode="stretch_width"),
+                   card("3-D view", self._view3d, pn.Row(self._turn, self._tilt), sizing_mode="stretch_width"),
+                   sizing_mode="stretch_width"),
+            card("The same plot at other delays: too short a delay squeezes the cloud onto the diagonal, "
+                 "too long a delay smears it", self._multiples, sizing_mode="stretch_width"),
+            card("Space-time separation and Theiler window", self._space_time_text, self._space_time,
+                 pn.Row(self._theiler_in, self._theiler_use, self._theiler_back), sizing_mode="stretch_width"),
+            sizing_mode="stretch_width")
+
+
+def _delay_steps(tau: int) -> list:
+    """Delays for the small multiples: a quarter, half, one, two and four times the chosen delay."""
+    return sorted({max(1, tau // 4), max(1, tau // 2), tau, 2 * tau, 4 * tau})

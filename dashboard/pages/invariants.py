@@ -1,0 +1,218 @@
+"""Page 3 · Invariants: run the analysis, read the verdict and the numbers with their units and
+uncertainties, adjust the fit ranges by selecting them on the plots, read the cautions."""
+
+from __future__ import annotations
+
+from functools import partial
+
+import holoviews as hv
+import panel as pn
+import param
+
+from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
+from engine.summary import CAUTION
+
+from .. import figures
+from ..state import SessionState
+from .common import card, esc, number, run
+
+KIND_WORDS = {"iaaft": "IAAFT: same spectrum and values (best)", "aaft": "AAFT: amplitude-adjusted",
+              "ft": "FT: same spectrum, Gaussian values"}
+STATISTIC_WORDS = {"prediction_error": "nonlinear prediction error", "time_asymmetry": "time asymmetry"}
+
+
+def _pm(est: dict | None, key: str = "value", unc: str = "uncertainty") -> tuple[str, str]:
+    if not est or est.get(key) is None:
+        return "n/a", ""
+    value = est[key]
+    u = est.get(unc)
+    return number(value), ("" if u is None else f"± {number(u, 2)}")
+
+
+def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
+    """(quantity, value, uncertainty, unit, how it was obtained) for the results table."""
+    unit = summary.get("input", {}).get("time_unit", "sample")
+    sig_units = summary.get("input", {}).get("units", "1")
+    rows = []
+    d = summary.get("delay") or {}
+    rows.append(("Delay", f"{d.get('samples')}", "", "samples" + ("" if unit == "sample" else
+                 f" (= {number(d.get('time'))} {unit})"), d.get("reason", "")))
+    m = summary.get("embedding_dimension") or {}
+    rows.append(("Embedding dimension", f"{m.get('value')}", "", "", m.get("reason", "")))
+    w = summary.get("theiler_window")
+    if w:
+        rows.append(("Theiler window", f"{w.get('samples')}", "", "samples" + ("" if unit == "sample" else
+                     f" (= {number(w.get('time'))} {unit})"), w.get("reason") or ""))
+    d2 = summary.get("correlation_dimension")
+    if d2 is not None:
+        v, u = _pm(d2)
+        rng = d2.get("scaling_range")
+        how = d2.get("reason") or ""
+        if rng:
+            how = (f"slope of the correlation sum over radii {number(rng[0], 3)} – {number(rng[1], 3)} "
+                   f"{'' if sig_units in ('', '1') else sig_units}; "
+                   + ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate")
+                   + (f". {how}" if how else ""))
+        rows.append(("Correlation dimension D2", v, u, "(no unit)", how))
+        ml = d2.get("maximum_likelihood")
+        if ml:
+            v, u = _pm(ml)
+            rows.append(("  … maximum-likelihood estimate", v, u, "(no unit)", ml.get("reason") or "Takens' estimator"))
+    k2 = summary.get("correlation_entropy")
+    if k2 is not None:
+        key = "per_time_unit" if k2.get("per_time_unit") is not None else "value"
+        v, u = _pm(k2, key)
+        rows.append(("Correlation entropy K2", v, u, f"per {unit}" if key == "per_time_unit" else "",
+                     k2.get("reason") or ""))
+    cap = summary.get("capacity_dimension")
+    if cap is not None:
+        v, u = _pm(cap)
+        rows.append(("Capacity (box-counting) dimension", v, u, "(no unit)", cap.get("reason") or ""))
+    lle = summary.get("largest_lyapunov_exponent")
+    if lle is not None:
+        v, u = _pm(lle, "per_time_unit")
+        fit = lle.get("fit_range")
+        how = lle.get("reason") or ""
+        if fit:
+            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how}" if how else "")
+        rows.append(("Largest Lyapunov exponent", v, u, f"per {unit}", how))
+        v, u = _pm(lle, "per_sample", "uncertainty_per_sample")
+        rows.append(("  … per sample", v, u, "per sample", ""))
+        kantz = lle.get("kantz")
+        if kantz:
+            v, u = _pm(kantz, "per_time_unit")
+            rows.append(("  … cross-check (Kantz)", v, u, f"per {unit}", kantz.get("reason") or ""))
+    test = summary.get("surrogate_test")
+    if test is not None:
+        p = test.get("p_value")
+        verdict = {True: "differs from linear noise", False: "not distinguishable from linear noise",
+                   None: test.get("reason") or "not run"}[test.get("rejects_linear_null")]
+        rows.append(("Surrogate test p-value", number(p, 2) if p is not None else "n/a", "", "",
+                     f"{test.get('surrogates')} {str(test.get('kind') or '').upper()} surrogates, "
+                     f"{STATISTIC_WORDS.get(test.get('statistic'), test.get('statistic'))}: {verdict}"))
+    rec = summary.get("recurrence")
+    if rec:
+        for key, label in (("recurrence_rate", "Recurrence rate"), ("determinism", "Determinism"),
+                           ("laminarity", "Laminarity")):
+            if key in rec:
+                rows.append((label, number(rec[key], 3), "", "(fraction)", ""))
+    return rows
+
+
+def results_table_html(summary: dict) -> str:
+    head = "<tr><th>Quantity</th><th>Value</th><th>Uncertainty</th><th>Unit</th><th>How it was obtained</th></tr>"
+    body = "".join(
+        f"<tr><td>{esc(q)}</td><td class='num'>{esc(v)}</td><td class='num'>{esc(u)}</td>"
+        f"<td>{esc(un)}</td><td><small>{esc(h)}</small></td></tr>" for q, v, u, un, h in result_rows(summary))
+    return f"<table class='results'>{head}{body}</table>"
+
+
+class InvariantsPage(pn.viewable.Viewer):
+    title = "3 · Invariants"
+    state = param.ClassSelector(class_=SessionState)
+
+    def __init__(self, **params):
+        super().__init__(**params)
+        st = self.state.settings
+        self._surrogates = pn.widgets.IntInput(name="Surrogates (19 for a one-sided test, 39 two-sided)",
+                                               value=st.surrogates, start=0, end=999, width=300)
+        self._kind = pn.widgets.Select(name="Surrogate kind", value=st.surrogate_kind, width=300,
+                                       options={KIND_WORDS.get(k, k): k for k in SURROGATE_KINDS})
+        self._statistic = pn.widgets.Select(name="Test statistic", value=st.surrogate_statistic, width=250,
+                                            options={STATISTIC_WORDS.get(k, k): k for k in SURROGATE_STATISTICS})
+        self._seed = pn.widgets.IntInput(name="Seed (for every random choice)", value=st.seed, start=0, width=220)
+        self._run = pn.widgets.Button(name="Run the analysis", button_type="primary", width=200, height=40)
+        self._run.on_click(self._on_run)
+        self._intro = pn.pane.HTML(sizing_mode="stretch_width")
+        self._verdict = pn.pane.Alert("", alert_type="info", visible=False, sizing_mode="stretch_width")
+        self._table = pn.pane.HTML(sizing_mode="stretch_width")
+        self._warnings = pn.pane.HTML(sizing_mode="stretch_width")
+        self._plots = {name: pn.pane.HoloViews(sizing_mode="stretch_width") for name in
+                       ("slopes", "sums", "divergence", "boxes", "surrogates", "recurrence")}
+        self._streams = []
+        self.state.param.watch(self._show, ["analysis", "settings", "busy", "prepared"])
+        self._show()
+
+    async def _on_run(self, event):
+        changes = dict(surrogates=int(self._surrogates.value or 0), surrogate_kind=self._kind.value,
+                       surrogate_statistic=self._statistic.value, seed=int(self._seed.value or 0))
+        if await run(self.state, self.state.change_settings, **changes):
+            await run(self.state, self.state.run_analysis)
+
+    async def _refit(self, **ranges):
+        await run(self.state, self.state.refit, **ranges)
+
+    def _on_bounds(self, kind: str, boundsx=None, **_):
+        if boundsx is None or None in boundsx or boundsx[0] == boundsx[1]:
+            return
+        lo, hi = sorted(boundsx)
+        ranges = ({"scaling_range": (float(lo), float(hi))} if kind == "slopes"
+                  else {"divergence_range": (int(round(lo)), int(round(hi)))})
+        pn.state.execute(partial(self._refit, **ranges))
+
+    def _show(self, *events):
+        s = self.state
+        st = s.settings
+        self._run.disabled = s.busy or s.prepared is None
+        self._surrogates.value, self._kind.value = st.surrogates, st.surrogate_kind
+        self._statistic.value, self._seed.value = st.surrogate_statistic, st.seed
+        a = s.analysis
+        if s.prepared is None:
+            self._intro.object = "<p>Load a recording on page 1 first.</p>"
+        elif a is None:
+            self._intro.object = ("<p>Press <b>Run the analysis</b> to compute the correlation dimension, the "
+                                  "largest Lyapunov exponent, box counts, the surrogate test and the recurrence "
+                                  "quantification at the delay and dimension of page 2.</p>")
+        elif not s.analysis_current:
+            self._intro.object = ("<p class='warning-text'>The settings changed since these results were "
+                                  "computed: press Run again to bring them up to date.</p>")
+        else:
+            self._intro.object = ("<p>Select a range on the local-slope or divergence plot (drag with the "
+                                  "range tool) to refit the estimate over that range.</p>")
+        if a is None or a.results is None:
+            self._verdict.visible = False
+            self._table.object = self._warnings.object = ""
+            for pane in self._plots.values():
+                pane.object = None
+            return
+        summary = a.summary
+        self._verdict.param.update(object=esc(summary.get("verdict", "")), visible=True)
+        self._table.object = results_table_html(summary)
+        warnings = summary.get("warnings") or []
+        self._warnings.object = ("<ul class='warnings'>" + "".join(f"<li>{esc(w)}</li>" for w in warnings)
+                                 + "</ul>") if warnings else "<p>No warnings.</p>"
+        res = a.results
+        slopes = figures.local_slopes(res, summary)
+        divergence = figures.divergence(res, summary)
+        self._streams = []
+        for kind, fig in (("slopes", slopes), ("divergence", divergence)):
+            source = figures.selectable(fig)
+            if source is not None:
+                stream = hv.streams.BoundsX(source=source)
+                stream.add_subscriber(lambda kind=kind, **kw: self._on_bounds(kind, **kw))
+                self._streams.append(stream)
+        self._plots["slopes"].object = slopes
+        self._plots["sums"].object = figures.correlation_sums(res, summary)
+        self._plots["divergence"].object = divergence
+        self._plots["boxes"].object = figures.box_counting(res, summary)
+        self._plots["surrogates"].object = figures.surrogate_histogram(res, summary)
+        self._plots["recurrence"].object = figures.recurrence_plot(res)
+
+    def __panel__(self):
+        options = card("Surrogate test", pn.Row(self._surrogates, self._kind), pn.Row(self._statistic, self._seed),
+                       sizing_mode="stretch_width")
+        p = self._plots
+        return pn.Column(
+            pn.Row(pn.Column(self._intro, self._run, sizing_mode="stretch_width"), options,
+                   sizing_mode="stretch_width"),
+            self._verdict,
+            card("Results", self._table, sizing_mode="stretch_width"),
+            card("Warnings", self._warnings, sizing_mode="stretch_width"),
+            pn.Row(card("Local slopes (correlation dimension)", p["slopes"], sizing_mode="stretch_width"),
+                   card("Correlation sums", p["sums"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
+            pn.Row(card("Divergence of neighbours (Lyapunov exponent)", p["divergence"], sizing_mode="stretch_width"),
+                   card("Box counting", p["boxes"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
+            pn.Row(card("Surrogate test", p["surrogates"], sizing_mode="stretch_width"),
+                   card("Recurrence plot", p["recurrence"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
+            pn.pane.Alert(CAUTION, alert_type="warning", sizing_mode="stretch_width"),
+            sizing_mode="stretch_width")

@@ -1,0 +1,213 @@
+"""Page 1 · Recording: drop a file or pick a demo, answer only the questions the file leaves open,
+read the checks in plain words and apply their fixes, look at the series and its spectrum."""
+
+from __future__ import annotations
+
+import panel as pn
+import param
+
+from engine.recording import json_attr, sampling_interval, time_unit, variable_name
+
+from .. import figures, style
+from ..server import demo_files
+from ..state import SessionState
+from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, number, run, with_unit
+
+ACCEPTED = [".csv", ".tsv", ".txt", ".nc", ".npy", ".wav"]
+NO_TIME = "(none: evenly sampled)"
+STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "short gaps interpolated",
+              "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
+              "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
+              "detrend mean": "mean removed", "detrend linear": "straight line removed"}
+
+
+def step_words(step: dict) -> str:
+    """Plain words for one preparation step the engine recorded."""
+    name = step.get("step", "")
+    if name == "detrend":
+        name = f"detrend {step.get('kind', '')}"
+    return STEP_WORDS.get(name, name.replace("_", " "))
+
+
+class RecordingPage(pn.viewable.Viewer):
+    title = "1 · Recording"
+    state = param.ClassSelector(class_=SessionState)
+
+    def __init__(self, **params):
+        super().__init__(**params)
+        s = self.state
+        self._dropper = pn.widgets.FileDropper(accepted_filetypes=ACCEPTED, multiple=False,
+                                               max_file_size="200MB", sizing_mode="stretch_width", height=110)
+        self._dropper.param.watch(self._on_drop, "value")
+        self._seen: set = set()
+        demos = {p.name: str(p) for p in demo_files()}
+        self._demo = pn.widgets.Select(name="Demo recordings", options=demos, sizing_mode="stretch_width",
+                                       disabled=not demos)
+        self._demo_button = pn.widgets.Button(name="Open demo", button_type="default", disabled=not demos,
+                                              width=110, align="end")
+        self._demo_button.on_click(self._on_demo)
+
+        # questions for ambiguous files
+        self._variable = pn.widgets.Select(name="Variable to analyse", sizing_mode="stretch_width")
+        self._time_column = pn.widgets.Select(name="Time column", sizing_mode="stretch_width")
+        self._interval = pn.widgets.FloatInput(name="Sampling interval (s), if there is no time column",
+                                               value=None, start=0, sizing_mode="stretch_width")
+        self._choose = pn.widgets.Button(name="Load this variable", button_type="primary", width=180)
+        self._choose.on_click(self._on_choose)
+        self._questions = card("This file needs a choice", self._variable, self._time_column, self._interval,
+                               self._choose, visible=False, sizing_mode="stretch_width")
+
+        # preparation
+        st = s.settings
+        self._detrend = pn.widgets.RadioButtonGroup(name="Remove", options={"nothing": "none", "the mean": "mean",
+                                                                             "a straight line": "linear"},
+                                                    value=st.detrend, button_type="default")
+        self._crop_start = pn.widgets.FloatInput(name="Keep from (time)", value=None, sizing_mode="stretch_width")
+        self._crop_stop = pn.widgets.FloatInput(name="Keep until (time)", value=None, sizing_mode="stretch_width")
+        self._standardise = pn.widgets.Checkbox(name="Scale to unit variance", value=st.standardise)
+        self._set_interval = pn.widgets.FloatInput(name="Sampling interval (s)", value=None, start=0,
+                                                   sizing_mode="stretch_width")
+        self._apply = pn.widgets.Button(name="Apply preparation", button_type="primary", width=170)
+        self._apply.on_click(self._on_apply)
+
+        self._summary = pn.pane.HTML(sizing_mode="stretch_width")
+        self._checks = pn.Column(sizing_mode="stretch_width")
+        self._series = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
+        self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
+        s.param.watch(self._show_pending, "pending")
+        s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings", "busy"])
+        s.param.watch(self._show_spectrum, ["diagnostics", "prepared"])
+        self._show_pending()
+        self._show_recording()
+        self._show_spectrum()
+
+    # -- callbacks ----------------------------------------------------------------------------------
+    async def _on_drop(self, event):
+        new = {(name, len(data)) for name, data in event.new.items()} - self._seen
+        if not new:
+            return
+        name, _ = sorted(new)[-1]
+        self._seen |= new
+        if await run(self.state, self.state.load_bytes, event.new[name], name):
+            await estimate_if_ready(self.state)
+
+    async def _on_demo(self, event):
+        path = self._demo.value
+        if not path:
+            return
+        with open(path, "rb") as f:
+            data = f.read()
+        if await run(self.state, self.state.load_bytes, data, path.rsplit("/", 1)[-1]):
+            await estimate_if_ready(self.state)
+
+    async def _on_choose(self, event):
+        time_column = None if self._time_column.value in (None, NO_TIME) else self._time_column.value
+        ok = await run(self.state, self.state.choose, variable=self._variable.value, time_column=time_column,
+                       sampling_interval=self._interval.value or None)
+        if ok:
+            await estimate_if_ready(self.state)
+
+    async def _on_apply(self, event):
+        changes = dict(detrend=self._detrend.value, standardise=self._standardise.value,
+                       crop_start=self._crop_start.value, crop_stop=self._crop_stop.value)
+        if self._set_interval.visible and self._set_interval.value:
+            changes["sampling_interval"] = float(self._set_interval.value)
+        if await run(self.state, self.state.change_settings, **changes):
+            await estimate_if_ready(self.state)
+
+    async def _on_fix(self, finding):
+        if await run(self.state, self.state.apply_fix, finding):
+            await estimate_if_ready(self.state)
+
+    # -- views --------------------------------------------------------------------------------------
+    def _show_pending(self, *events):
+        p = self.state.pending
+        self._questions.visible = p is not None
+        if p is None:
+            return
+        self._questions.title = f"{p['name']} holds {len(p['variables'])} variables: which one?"
+        self._variable.options = list(p["variables"])
+        self._time_column.options = [NO_TIME] + list(p.get("time_columns", []))
+        self._time_column.value = (p.get("time_columns") or [NO_TIME])[0]
+        self._time_column.visible = bool(p.get("time_columns"))
+
+    def _show_recording(self, *events):
+        s = self.state
+        rec = s.prepared if s.prepared is not None else s.raw
+        busy = s.busy
+        for w in (self._apply, self._demo_button, self._choose):
+            w.disabled = busy or (w is self._demo_button and not self._demo.options)
+        if rec is None:
+            self._summary.object = (f"<p style='color:{style.SLATE}'>No recording yet. Drop a file above "
+                                    "(CSV, TSV, TXT, NetCDF, .npy or .wav) or open a demo.</p>")
+            self._checks.objects = []
+            self._series.object = None
+            return
+        self._summary.object = self._summary_html(rec)
+        st = s.settings
+        self._detrend.value, self._standardise.value = st.detrend, st.standardise
+        self._crop_start.value, self._crop_stop.value = st.crop_start, st.crop_stop
+        self._set_interval.visible = time_unit(s.raw) in ("sample", "unknown") or st.sampling_interval is not None
+        self._set_interval.value = st.sampling_interval
+        self._checks.objects = self._check_rows(s.checks)
+        self._series.object = figures.time_series(rec)
+
+    def _show_spectrum(self, *events):
+        rec = self.state.prepared
+        self._spectrum.object = None if rec is None else figures.spectrum(*self.state.spectrum(), unit=time_unit(rec))
+
+    def _summary_html(self, rec) -> str:
+        s = self.state
+        name = variable_name(rec)
+        units = rec[name].attrs.get("units", "1")
+        n = rec.sizes["time"]
+        dt, unit = sampling_interval(rec), time_unit(rec)
+        steps = [step_words(p) for p in json_attr(rec, "preparation", [])]
+        rows = [
+            ("File", esc(s.source_name or rec.attrs.get("source", ""))),
+            ("Variable", f"{esc(name)} ({esc(units) if units not in ('', '1') else 'no unit given'})"),
+            ("Samples", f"{n:,}"),
+            ("Sampling interval", with_unit(dt, unit) if unit not in ("sample", "unknown") else
+             "not given (times are sample numbers): set it under Preparation"),
+            ("Duration", with_unit(n * dt, unit) if unit != "sample" else f"{n:,} samples"),
+            ("Preparation", esc(", ".join(steps)) if steps else "none"),
+        ]
+        body = "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows)
+        return f"<table class='facts'>{body}</table>"
+
+    def _check_rows(self, checks) -> list:
+        if not checks:
+            return [pn.pane.HTML(f"<p style='color:{style.SAGE}'>No problems found.</p>")]
+        order = {"refuse": 0, "warn": 1, "note": 2}
+        rows = []
+        for finding in sorted(checks, key=lambda c: order.get(c.get("severity"), 3)):
+            sev = finding.get("severity", "note")
+            text = (f"<span class='badge' style='background:{SEVERITY_COLOURS.get(sev, style.SLATE)}'>"
+                    f"{SEVERITY_WORDS.get(sev, sev)}</span> {esc(finding.get('message', ''))}")
+            if finding.get("fix"):
+                text += f"<br><small><b>Fix:</b> {esc(finding['fix'])}</small>"
+            row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6))]
+            if self.state.fix_changes(finding):
+                button = pn.widgets.Button(name="Apply fix", button_type="primary", width=110, align="center")
+                button.on_click(lambda event, f=finding: self._on_fix(f))
+                row.append(button)
+            rows.append(pn.Row(*row, sizing_mode="stretch_width"))
+        return rows
+
+    def __panel__(self):
+        load = card("Open a recording",
+                    pn.pane.HTML("<small>Drop a file here, or click to browse: CSV, TSV, TXT, NetCDF (.nc), "
+                                 ".npy or .wav with one measured channel.</small>", margin=(0, 6)),
+                    self._dropper, pn.Row(self._demo, self._demo_button, sizing_mode="stretch_width"),
+                    sizing_mode="stretch_width")
+        prep = card("Preparation", pn.pane.HTML("<small>Remove before analysis:</small>", margin=(0, 6)),
+                    self._detrend, pn.Row(self._crop_start, self._crop_stop), self._standardise,
+                    self._set_interval, self._apply, sizing_mode="stretch_width")
+        return pn.Column(
+            pn.Row(load, self._questions, sizing_mode="stretch_width"),
+            pn.Row(card("What was loaded", self._summary, sizing_mode="stretch_width"), prep,
+                   sizing_mode="stretch_width"),
+            card("Checks", self._checks, sizing_mode="stretch_width"),
+            pn.Row(self._series, self._spectrum, sizing_mode="stretch_width"),
+            sizing_mode="stretch_width")
+

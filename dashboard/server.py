@@ -1,0 +1,115 @@
+"""Serve the dashboard: one fresh SessionState per browser session.
+
+``serve()`` binds to this machine only unless told otherwise; a non-local
+address needs a password file (or an explicit ``allow_unprotected=True``).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import ipaddress
+import logging
+import secrets
+import threading
+from pathlib import Path
+
+from engine.errors import LagspaceError
+
+log = logging.getLogger(__name__)
+
+DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_data"
+DEMO_SUFFIXES = (".csv", ".tsv", ".txt", ".nc", ".npy", ".wav")
+PREFERRED_DEMO = "thermosyphon_thermocouple.nc"
+MAX_MESSAGE = 256 * 1024 * 1024  # largest single upload message (bundles go in one piece)
+
+
+def demo_files() -> list[Path]:
+    """The demo recordings shipped in demo_data/ (empty when there are none)."""
+    if not DEMO_DIR.is_dir():
+        return []
+    return sorted(p for p in DEMO_DIR.iterdir() if p.suffix.lower() in DEMO_SUFFIXES and p.is_file())
+
+
+def default_demo() -> Path | None:
+    files = demo_files()
+    preferred = [p for p in files if p.name == PREFERRED_DEMO]
+    return (preferred or files or [None])[0]
+
+
+def _is_local(address: str) -> bool:
+    if address == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(address).is_loopback
+    except ValueError:
+        return False
+
+
+def _read_password(password_file) -> str:
+    try:
+        password = Path(password_file).read_text(encoding="utf-8").strip()
+    except OSError as exc:
+        raise LagspaceError(f"cannot read the password file {password_file}: {exc.strerror}") from None
+    if len(password) < 8:
+        raise LagspaceError(f"the password in {password_file} is shorter than 8 characters; use a longer one")
+    return password
+
+
+def _origins(address: str, port: int) -> list[str]:
+    if address in ("0.0.0.0", "::", ""):
+        return ["*"]
+    return sorted({f"localhost:{port}", f"127.0.0.1:{port}", f"{address}:{port}"})
+
+
+def _warm_up() -> None:
+    """Compile the engine's kernels in the background (if the engine offers it)."""
+    if importlib.util.find_spec("engine.warmup") is None:
+        return
+    from engine.warmup import warm_up
+
+    def run():
+        try:
+            warm_up()
+        except Exception:  # warm-up is an optimisation; never stop the server for it
+            log.exception("kernel warm-up failed")
+
+    threading.Thread(target=run, name="lagspace-warmup", daemon=True).start()
+
+
+def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show: bool = False,
+          password_file=None, allow_unprotected: bool = False):
+    """Start the dashboard server and block until it is stopped (Ctrl-C).
+
+    Parameters
+    ----------
+    address, port : where to listen (default: this machine only, port 5006).
+    demo : open every new session with a demo recording loaded.
+    show : open a browser tab.
+    password_file : file whose first line is the password asked at login.
+    allow_unprotected : serve a non-local address without a password anyway.
+    """
+    if not _is_local(address) and password_file is None and not allow_unprotected:
+        raise LagspaceError(
+            f"serving on {address} lets anyone on the network use this dashboard; "
+            "give --password-file F, or --allow-unprotected to accept that")
+    if not 0 <= int(port) <= 65535:
+        raise LagspaceError(f"port must be between 0 and 65535, got {port}")
+    import panel as pn
+
+    from .app import build_app
+
+    demo_path = default_demo() if demo else None
+    if demo and demo_path is None:
+        log.warning("no demo recordings found in %s; starting empty", DEMO_DIR)
+    auth = {}
+    if password_file is not None:
+        auth = dict(basic_auth=_read_password(password_file), cookie_secret=secrets.token_hex(32))
+    _warm_up()
+    host = "localhost" if _is_local(address) else address
+    print(f"lagspace dashboard: http://{host}:{port}/  (Ctrl-C stops it)", flush=True)
+    def session():
+        return build_app(demo_path=demo_path)
+
+    pn.serve({"/": session}, address=address, port=int(port), show=show,
+             title="lagspace", websocket_origin=_origins(address, int(port)), verbose=False,
+             websocket_max_message_size=MAX_MESSAGE, max_buffer_size=MAX_MESSAGE, **auth)

@@ -1,0 +1,412 @@
+"""One SessionState per browser session: what is loaded, the settings, and what was computed.
+
+The state only calls the engine and keeps its answers; it holds no science. Each
+method runs its work in the calling thread; the pages call them through
+:meth:`SessionState.in_background`, which moves the work to a shared thread pool
+so that a long analysis in one session never blocks another. Errors become one
+line in ``error`` and leave everything loaded or computed before untouched.
+
+Settings fall into stages (input -> preparation -> diagnostics -> invariants). A
+change recomputes its own stage and what follows it that was already computed;
+the invariants are only recomputed when the user presses Run.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import dataclasses
+import logging
+import threading
+import time
+from concurrent.futures import ThreadPoolExecutor
+from functools import partial
+from typing import Callable, Optional
+
+import param
+
+from engine import bundle as bundle_mod
+from engine import delay as delay_mod
+from engine.checks import check_recording
+from engine.errors import Cancelled, LagspaceError
+from engine.loading import describe_source, load_recording
+from engine.preparation import prepare
+from engine.recording import json_attr, sampling_interval, signal
+from engine.settings import Settings
+from engine.summary import summarise
+
+log = logging.getLogger(__name__)
+
+
+def estimate_diagnostics(*args, **kwargs):  # TEMPORARY lazy import until engine.dimension lands
+    from engine.diagnostics import estimate
+
+    return estimate(*args, **kwargs)
+
+
+class _LazyAnalysis:  # TEMPORARY lazy import until every invariant module lands
+    def __getattr__(self, name):
+        from engine import analysis
+
+        return getattr(analysis, name)
+
+
+analysis_mod = _LazyAnalysis()
+
+# One pool for every session of the server: numba kernels release the GIL, so two
+# sessions' analyses run side by side.
+EXECUTOR = ThreadPoolExecutor(max_workers=4, thread_name_prefix="lagspace-work")
+
+INPUT = ("variable",)
+PREPARATION = ("sampling_interval", "crop_start", "crop_stop", "detrend", "standardise", "resample", "fill_gaps", "max_gap")
+DIAGNOSTICS = ("delay", "dimension", "max_delay", "max_dimension", "mi_bins", "fnn_rtol", "fnn_atol",
+               "fnn_threshold", "cao_threshold", "theiler")
+INVARIANTS = ("radii", "reference_points", "max_pairs_samples", "lyapunov_steps", "surrogates",
+              "surrogate_max_samples", "surrogate_kind", "surrogate_statistic", "recurrence_rate",
+              "recurrence_max_points", "min_line", "seed")
+STAGES = ("input", "preparation", "diagnostics", "invariants")
+
+
+def stage_of(field: str) -> int:
+    """Index in STAGES of the first computation a setting affects (unknown fields: preparation)."""
+    for i, names in enumerate((INPUT, PREPARATION, DIAGNOSTICS, INVARIANTS)):
+        if field in names:
+            return i
+    return 1
+
+
+def _key(settings: Settings, upto: int) -> tuple:
+    """The settings that the stages up to ``upto`` depend on (to know what is current)."""
+    return tuple((f.name, getattr(settings, f.name)) for f in dataclasses.fields(settings)
+                 if stage_of(f.name) <= upto)
+
+
+def one_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+class SessionState(param.Parameterized):
+    """Everything one browser session has loaded and computed."""
+
+    source_name = param.String(default="", doc="file name of the recording or bundle")
+    pending = param.Dict(default=None, allow_None=True,
+                         doc="what describe_source said of a file that needs a choice before loading")
+    raw = param.Parameter(default=None, doc="the Recording as loaded")
+    prepared = param.Parameter(default=None, doc="the Recording after the preparation settings")
+    checks = param.List(default=[], doc="findings of check_recording on what is shown")
+    settings = param.ClassSelector(class_=Settings, default=Settings())
+    diagnostics = param.Parameter(default=None, doc="Diagnostics dataset (delay and dimension)")
+    analysis = param.Parameter(default=None, doc="engine Analysis of the last Run")
+
+    busy = param.Boolean(default=False)
+    task = param.String(default="", doc="what is running now")
+    progress = param.Number(default=0.0, bounds=(0.0, 1.0))
+    message = param.String(default="Load a recording to begin.")
+    error = param.String(default="")
+
+    def __init__(self, **params):
+        super().__init__(**params)
+        self._data: Optional[bytes] = None           # bytes of the loaded file (None after a bundle)
+        self._load_options: dict = {}
+        self._keys: dict = {}                        # stage name -> settings key it was computed with
+        self._lock = threading.Lock()
+        self._cancel = threading.Event()
+        self._last_report = 0.0
+
+    # -- what is current ----------------------------------------------------------------------------
+    @property
+    def refusals(self) -> list:
+        return [c for c in self.checks if c.get("severity") == "refuse"]
+
+    @property
+    def diagnostics_current(self) -> bool:
+        return self.diagnostics is not None and self._keys.get("diagnostics") == _key(self.settings, 2)
+
+    @property
+    def analysis_current(self) -> bool:
+        return (self.analysis is not None and self.analysis.results is not None
+                and self.analysis.settings == self.settings and self._keys.get("analysis") == _key(self.settings, 3))
+
+    @property
+    def summary(self) -> Optional[dict]:
+        return None if self.analysis is None else self.analysis.summary
+
+    def spectrum(self):
+        """(power spectrum dataset or None, dominant period dict or None) of the prepared recording.
+
+        The spectrum comes from ``engine.delay.power_spectrum`` when the engine offers it; the
+        dominant period from the diagnostics.
+        """
+        spec = None
+        maker = getattr(delay_mod, "power_spectrum", None)
+        if self.prepared is not None and maker is not None:
+            spec = maker(signal(self.prepared), sampling_interval=sampling_interval(self.prepared))
+        dominant = None if self.diagnostics is None else json_attr(self.diagnostics, "dominant_period")
+        return spec, dominant
+
+    # -- running work -------------------------------------------------------------------------------
+    def _report(self, fraction: float, message: str) -> None:
+        """Progress from the engine, at most ten updates a second."""
+        now = time.monotonic()
+        if now - self._last_report >= 0.1 or fraction >= 1.0:
+            self._last_report = now
+            self.param.update(progress=min(max(fraction, 0.0), 1.0), message=f"{self.task}: {message}")
+
+    def _run(self, task: str, work: Callable) -> bool:
+        """Run ``work(progress, cancel)``; on failure show one line and keep what was there."""
+        if not self._lock.acquire(blocking=False):
+            self.error = f"still {self.task.lower()}; wait for it or press Cancel"
+            return False
+        self._cancel = threading.Event()
+        self.param.update(busy=True, task=task, progress=0.0, error="", message=f"{task} …")
+        try:
+            work(self._report, self._cancel)
+        except Cancelled:
+            self.message = f"{task} cancelled; earlier results are kept."
+            return False
+        except LagspaceError as exc:
+            self.param.update(error=one_line(exc), message=f"{task} failed; earlier results are kept.")
+            return False
+        except MemoryError:
+            self.param.update(error="not enough memory for this; crop the recording or lower the limits",
+                              message=f"{task} failed; earlier results are kept.")
+            return False
+        except Exception as exc:  # a bug: keep the session alive, log the traceback server-side
+            log.exception("%s failed", task)
+            self.param.update(error=f"unexpected problem ({type(exc).__name__}: {one_line(exc)}); "
+                                    "please report it with the bundle or the file",
+                              message=f"{task} failed; earlier results are kept.")
+            return False
+        finally:
+            self.param.update(busy=False, progress=0.0)
+            self._lock.release()
+        return True
+
+    def cancel(self) -> None:
+        """Ask the running work to stop at its next check."""
+        self._cancel.set()
+
+    async def in_background(self, method: Callable, *args, **kwargs):
+        """Await ``method(*args, **kwargs)`` run in the shared worker pool (for the pages)."""
+        loop = asyncio.get_running_loop()
+        return await loop.run_in_executor(EXECUTOR, partial(method, *args, **kwargs))
+
+    # -- loading ------------------------------------------------------------------------------------
+    def load_bytes(self, data, name: str, *, variable=None, time_column=None, sampling_interval=None) -> bool:
+        """Load a recording from uploaded bytes. If the file is ambiguous (several variables)
+        and no choice was given, keep its description in ``pending`` and load nothing yet."""
+        data = data.encode("utf-8") if isinstance(data, str) else bytes(data)
+
+        def work(progress, cancel):
+            info = describe_source(data, name=name)
+            if info.get("needs_variable") and variable is None:
+                self._data = data
+                self.param.update(pending=dict(info, name=name), message=(
+                    f"{name} holds several variables: choose which one to analyse."))
+                return
+            options = dict(variable=variable, time_column=time_column)
+            rec = load_recording(data, name=name, **options)
+            keep = {f: getattr(self.settings, f) for f in INVARIANTS}
+            settings = Settings(variable=None if variable is None else str(variable),
+                                sampling_interval=sampling_interval, **keep)
+            prepared, checks = self._prepare(rec, settings)
+            self._data, self._load_options = data, options
+            self._keys = {"prepared": _key(settings, 1)}
+            self.param.update(source_name=name, pending=None, raw=rec, prepared=prepared, checks=checks,
+                              settings=settings, diagnostics=None, analysis=None,
+                              message=self._loaded_message(rec, checks))
+
+        return self._run(f"Loading {name}", work)
+
+    def choose(self, *, variable=None, time_column=None, sampling_interval=None) -> bool:
+        """Finish loading a pending ambiguous file with the user's choices."""
+        if self.pending is None or self._data is None:
+            self.error = "no file is waiting for a choice; drop a recording first"
+            return False
+        return self.load_bytes(self._data, self.pending["name"], variable=variable,
+                               time_column=time_column, sampling_interval=sampling_interval)
+
+    @staticmethod
+    def _prepare(rec, settings):
+        """(prepared, findings): the findings of what was prepared, or of the file as loaded
+        (and no prepared recording) when the checks refuse it."""
+        try:
+            prepared = prepare(rec, settings)
+        except LagspaceError:
+            findings = json_attr(rec, "checks", None) or check_recording(rec)
+            if not any(f.get("severity") == "refuse" for f in findings):
+                raise
+            return None, findings
+        return prepared, json_attr(prepared, "checks", [])
+
+    @staticmethod
+    def _loaded_message(rec, checks) -> str:
+        n = rec.sizes["time"]
+        refusals = sum(c.get("severity") == "refuse" for c in checks)
+        if refusals:
+            return f"Loaded {n:,} samples; {refusals} problem(s) must be fixed before the analysis."
+        return f"Loaded {n:,} samples. Check the findings, then go on to delay and dimension."
+
+    # -- settings -----------------------------------------------------------------------------------
+    def change_settings(self, **changes) -> bool:
+        """Change settings and recompute what depends on them (the invariants wait for Run)."""
+        try:
+            new = self.settings.replace(**changes)
+        except (LagspaceError, TypeError) as exc:
+            self.error = one_line(exc)
+            return False
+        changed = [k for k in changes if getattr(new, k) != getattr(self.settings, k)]
+        if not changed:
+            return True
+        first = min(stage_of(k) for k in changed)
+        if first == 3:
+            self.param.update(settings=new, error="",
+                              message="Settings changed; press Run to compute the invariants with them.")
+            return True
+        if self.raw is None:
+            self.settings = new
+            return True
+        had_diagnostics = self.diagnostics is not None
+
+        def work(progress, cancel):
+            rec = self.raw
+            if first == 0:
+                if self._data is None:
+                    raise LagspaceError("this recording came from a bundle; open the original file to "
+                                        "choose another variable")
+                opts = dict(self._load_options, variable=new.variable)
+                rec = load_recording(self._data, name=self.source_name, **opts)
+                self._load_options = opts
+            prepared, checks = (self.prepared, self.checks) if first >= 2 else self._prepare(rec, new)
+            update = dict(raw=rec, prepared=prepared, checks=checks, settings=new)
+            if prepared is not None and had_diagnostics and not any(c.get("severity") == "refuse" for c in checks):
+                update["diagnostics"] = estimate_diagnostics(prepared, new, progress=progress, cancel=cancel)
+                self._keys["diagnostics"] = _key(new, 2)
+            elif first <= 1:
+                update["diagnostics"] = None
+            self._keys["prepared"] = _key(new, 1)
+            self.param.update(**update, message="Settings changed; what depends on them was recomputed."
+                              + (" Press Run for the invariants." if self.analysis is not None else ""))
+
+        return self._run("Applying the settings", work)
+
+    def fix_changes(self, finding: dict) -> Optional[dict]:
+        """The settings changes of a finding's one-click fix (None: no such fix, or already made).
+
+        Uneven sampling is fixed by resampling; missing values by interpolation when every
+        run is inside the series and no longer than ``settings.max_gap``. Other findings are
+        fixed by hand (crop, another channel, a new recording), as their text says.
+        """
+        details = finding.get("details") or {}
+        code = finding.get("code")
+        changes = None
+        if code == "uneven_sampling":
+            changes = {"resample": True}
+        elif code == "not_finite" and not details.get("at_edge") \
+                and details.get("longest_run", 0) <= self.settings.max_gap:
+            changes = {"fill_gaps": True}
+        if not changes or all(getattr(self.settings, k) == v for k, v in changes.items()):
+            return None
+        return changes
+
+    def apply_fix(self, finding: dict) -> bool:
+        """Apply the one-click fix a check finding offers (its settings changes)."""
+        changes = self.fix_changes(finding)
+        if not changes:
+            self.error = f"this finding has no one-click fix; {finding.get('fix') or 'see its message'}"
+            return False
+        return self.change_settings(**changes)
+
+    def set_override(self, *, delay="keep", dimension="keep") -> bool:
+        """Use the user's delay and/or embedding dimension (``None``: back to the suggestion)."""
+        changes = {k: v for k, v in (("delay", delay), ("dimension", dimension)) if v != "keep"}
+        return self.change_settings(**changes)
+
+    # -- computing ----------------------------------------------------------------------------------
+    def _need_prepared(self):
+        if self.raw is None:
+            raise LagspaceError("load a recording first (drop a file on the Recording page or pick a demo)")
+        if self.prepared is None or self.refusals:
+            first = self.refusals[0] if self.refusals else {"message": "the preparation failed"}
+            raise LagspaceError(f"fix this first: {first['message']}"
+                                + (f" ({first['fix']})" if first.get("fix") else ""))
+        return self.prepared
+
+    def estimate(self) -> bool:
+        """Estimate delay and embedding dimension of the prepared recording."""
+
+        def work(progress, cancel):
+            prepared, settings = self._need_prepared(), self.settings
+            diag = estimate_diagnostics(prepared, settings, progress=progress, cancel=cancel)
+            self._keys["diagnostics"] = _key(settings, 2)
+            self.param.update(diagnostics=diag, message="Delay and embedding dimension estimated; "
+                                                        "check the reasons, then run the invariants.")
+
+        return self._run("Estimating delay and dimension", work)
+
+    def run_analysis(self) -> bool:
+        """Compute every invariant; reuses the delay and dimension when they are current."""
+
+        def work(progress, cancel):
+            prepared, settings = self._need_prepared(), self.settings
+            if self.diagnostics_current:
+                diag = self.diagnostics
+                results = analysis_mod.invariants(prepared, diag, settings, progress=progress, cancel=cancel)
+                result = analysis_mod.Analysis(self.raw, settings, prepared, diag, results,
+                                               summarise(prepared, diag, results, settings))
+            else:
+                result = analysis_mod.run_standard_analysis(self.raw, settings, progress=progress, cancel=cancel)
+            self._keys.update(diagnostics=_key(settings, 2), analysis=_key(settings, 3))
+            self.param.update(analysis=result, diagnostics=result.diagnostics,
+                              message="Analysis done. Read the verdict and the cautions before using the numbers.")
+
+        return self._run("Running the analysis", work)
+
+    def refit(self, *, scaling_range=None, divergence_range=None) -> bool:
+        """Re-estimate with a user-chosen scaling range or divergence fit range."""
+
+        def work(progress, cancel):
+            if self.analysis is None or self.analysis.results is None:
+                raise LagspaceError("run the analysis before adjusting its fit ranges")
+            new = analysis_mod.refit(self.analysis, scaling_range=scaling_range, divergence_range=divergence_range)
+            self.param.update(analysis=new, message="Estimates refitted over the range you chose.")
+
+        return self._run("Refitting", work)
+
+    # -- bundles ------------------------------------------------------------------------------------
+    def open_bundle(self, data, name: str = "bundle.zip") -> bool:
+        """Open a bundle: its recording, settings and results replace what was loaded."""
+        data = bytes(data)
+
+        def work(progress, cancel):
+            result = bundle_mod.read_bundle(data)
+            checks = check_recording(result.prepared)
+            self._data, self._load_options = None, {}
+            self._keys = {"prepared": _key(result.settings, 1), "diagnostics": _key(result.settings, 2)}
+            if result.results is not None:
+                self._keys["analysis"] = _key(result.settings, 3)
+            self.param.update(source_name=name, pending=None, raw=result.recording, prepared=result.prepared,
+                              checks=checks, settings=result.settings, diagnostics=result.diagnostics,
+                              analysis=result if result.results is not None else None,
+                              message=f"Opened {name}: the recording, settings and results it holds.")
+
+        return self._run(f"Opening {name}", work)
+
+    def bundle_analysis(self):
+        """The Analysis a download would hold: the last Run, else the delay and dimension so far."""
+        if self.analysis is not None:
+            return self.analysis
+        if self.diagnostics is None or self.prepared is None:
+            raise LagspaceError("nothing to download yet: load a recording and estimate delay and dimension first")
+        s = self.settings
+        return analysis_mod.Analysis(self.raw, s, self.prepared, self.diagnostics, None,
+                                     summarise(self.prepared, self.diagnostics, None, s))
+
+    def bundle_bytes(self) -> bytes:
+        """The zip bundle of :meth:`bundle_analysis` (raises LagspaceError when there is nothing)."""
+        return bundle_mod.bundle_bytes(self.bundle_analysis())
+
+    @property
+    def bundle_filename(self) -> str:
+        stem = (self.source_name or "recording").rsplit(".", 1)[0] or "recording"
+        return f"{stem}-lagspace.zip"

@@ -1,0 +1,197 @@
+"""SessionState without a browser: loading, choices, fixes, recomputation, errors, background work."""
+
+import asyncio
+import dataclasses
+import io
+import threading
+import zipfile
+
+import numpy as np
+import pytest
+
+import systems
+from engine.errors import LagspaceError
+from engine.recording import signal
+from engine.settings import Settings
+
+from dashboard import state as state_mod
+from dashboard.state import SessionState
+
+
+def csv_bytes(x, dt=0.01, header="time_s,x_V", extra=None):
+    lines = [header]
+    for i, v in enumerate(x):
+        row = f"{i * dt:.6f},{v:.9g}"
+        if extra is not None:
+            row += f",{extra[i]:.9g}"
+        lines.append(row)
+    return ("\n".join(lines) + "\n").encode()
+
+
+@pytest.fixture(scope="module")
+def lorenz():
+    return np.asarray(systems.lorenz(3000, dt=0.01))
+
+
+@pytest.fixture
+def loaded(lorenz):
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(lorenz), "lorenz.csv"), s.error
+    return s
+
+
+def test_every_setting_belongs_to_exactly_one_stage():
+    groups = [state_mod.INPUT, state_mod.PREPARATION, state_mod.DIAGNOSTICS, state_mod.INVARIANTS]
+    names = [f.name for f in dataclasses.fields(Settings)]
+    for name in names:
+        assert sum(name in g for g in groups) == 1, name
+    assert set().union(*groups) == set(names)
+
+
+def test_load_csv_keeps_values_and_interval(loaded, lorenz):
+    # Reference: the numbers written into the CSV (9 significant digits) and their 0.01 s spacing.
+    assert loaded.raw.sizes["time"] == 3000
+    assert loaded.raw.attrs["sampling_interval"] == pytest.approx(0.01)
+    assert np.allclose(signal(loaded.raw), lorenz, rtol=1e-8)
+    assert loaded.prepared is not None and not loaded.refusals
+    assert loaded.error == "" and "3,000 samples" in loaded.message
+    # the default preparation removes the mean (numpy mean as reference)
+    assert np.allclose(signal(loaded.prepared), lorenz - lorenz.mean(), atol=1e-7)
+
+
+def test_ambiguous_file_waits_for_a_choice(lorenz):
+    other = systems.white_noise(lorenz.size, seed=2)
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(lorenz, header="time_s,x_V,y_V", extra=other), "two.csv")
+    assert s.raw is None and s.pending["variables"] == ["x", "y"]
+    assert s.choose(variable="y"), s.error
+    assert s.pending is None and s.settings.variable == "y"
+    assert np.allclose(signal(s.raw), other, rtol=1e-8)
+    # switching the variable reloads from the kept bytes
+    assert s.change_settings(variable="x")
+    assert np.allclose(signal(s.raw), lorenz, rtol=1e-8)
+
+
+def test_bad_file_keeps_what_was_loaded(loaded):
+    before = loaded.raw
+    assert not loaded.load_bytes(b"\x00\x01\x02 not a recording", "junk.bin")
+    assert loaded.error and "\n" not in loaded.error
+    assert loaded.raw is before and loaded.source_name == "lorenz.csv"
+
+
+def test_crop_recomputes_preparation_and_rejects_impossible_crops(loaded):
+    t = loaded.raw["time"].values
+    assert loaded.change_settings(crop_start=5.0, crop_stop=25.0), loaded.error
+    # Reference: numpy count of the times inside the crop.
+    assert loaded.prepared.sizes["time"] == int(((t >= 5.0) & (t <= 25.0)).sum())
+    kept = loaded.prepared
+    assert not loaded.change_settings(crop_start=500.0, crop_stop=600.0)
+    assert loaded.error and loaded.prepared is kept and loaded.settings.crop_start == 5.0
+
+
+def test_invalid_setting_is_one_line_and_changes_nothing(loaded):
+    settings = loaded.settings
+    assert not loaded.change_settings(surrogates=-3)
+    assert "surrogates" in loaded.error and loaded.settings is settings
+
+
+def test_invariant_settings_do_not_touch_the_data(loaded):
+    prepared = loaded.prepared
+    assert loaded.change_settings(surrogates=19, seed=4)
+    assert loaded.prepared is prepared and loaded.settings.surrogates == 19
+    assert "Run" in loaded.message
+
+
+def test_new_recording_keeps_analysis_preferences_only(loaded, lorenz):
+    loaded.change_settings(surrogates=19, crop_start=1.0)
+    assert loaded.load_bytes(csv_bytes(lorenz[:2000]), "short.csv")
+    assert loaded.settings.surrogates == 19 and loaded.settings.crop_start is None
+
+
+def test_uneven_sampling_fix_resamples(lorenz):
+    # Uneven time stamps are refused (delay coordinates need even sampling: common practice).
+    t = np.cumsum(np.random.default_rng(1).uniform(0.005, 0.015, lorenz.size))
+    text = "time_s,x_V\n" + "\n".join(f"{a:.6f},{b:.9g}" for a, b in zip(t, lorenz))
+    s = SessionState()
+    assert s.load_bytes(text.encode(), "uneven.csv")
+    assert s.prepared is None and [c["code"] for c in s.refusals] == ["uneven_sampling"]
+    finding = s.refusals[0]
+    assert s.fix_changes(finding) == {"resample": True}
+    assert s.apply_fix(finding), s.error
+    assert s.prepared is not None and not s.refusals and s.settings.resample
+    steps = np.diff(s.prepared["time"].values)
+    assert np.allclose(steps, steps[0])
+    assert s.fix_changes(finding) is None  # already applied: no button any more
+
+
+def test_short_gaps_fix_interpolates(lorenz):
+    x = lorenz.copy()
+    x[[500, 501, 1700]] = np.nan
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(x).replace(b"nan", b""), "gaps.csv")
+    finding = next(c for c in s.refusals if c["code"] == "not_finite")
+    assert s.apply_fix(finding), s.error
+    y = signal(s.prepared)  # gaps filled, then the mean removed
+    assert np.isfinite(y).all()
+    # Reference: linear interpolation (numpy.interp) between the neighbours of each gap.
+    raw = signal(s.raw)
+    good = np.isfinite(raw)
+    expected = np.interp(np.arange(raw.size), np.flatnonzero(good), raw[good])
+    assert np.allclose(y - y.mean(), expected - expected.mean(), atol=1e-6)
+
+
+def test_findings_without_a_one_click_fix(lorenz):
+    s = SessionState()
+    s.load_bytes(csv_bytes(lorenz), "x.csv")
+    note = next(c for c in s.checks if c["severity"] == "note")
+    assert s.fix_changes(note) is None
+    assert not s.apply_fix(note) and s.error
+
+
+def test_nothing_to_bundle_before_estimates():
+    s = SessionState()
+    with pytest.raises(LagspaceError):
+        s.bundle_bytes()
+    assert not s.estimate() and "load a recording" in s.error
+
+
+def test_one_job_at_a_time(loaded):
+    started, release = threading.Event(), threading.Event()
+
+    def slow(progress, cancel):
+        started.set()
+        release.wait(5)
+
+    worker = threading.Thread(target=loaded._run, args=("Waiting", slow))
+    worker.start()
+    started.wait(5)
+    assert loaded.busy
+    assert not loaded.change_settings(crop_start=1.0)
+    assert "still" in loaded.error and loaded.settings.crop_start is None
+    release.set()
+    worker.join(5)
+    assert not loaded.busy
+
+
+def test_in_background_runs_off_the_calling_thread(loaded):
+    async def go():
+        return await loaded.in_background(lambda: threading.current_thread().name)
+
+    name = asyncio.run(go())
+    assert name.startswith("lagspace-work") and name != threading.current_thread().name
+
+
+def test_progress_and_cancel(loaded):
+    seen = []
+    loaded.param.watch(lambda e: seen.append(e.new), "progress")
+
+    def work(progress, cancel):
+        from engine.progress import Stage
+
+        stage = Stage(progress, cancel)
+        stage("first half", 0.5)
+        loaded.cancel()
+        stage("never", 0.9)
+
+    assert not loaded._run("Testing", work)
+    assert 0.5 in seen and "cancelled" in loaded.message and not loaded.busy
