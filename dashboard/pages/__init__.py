@@ -1,0 +1,1 @@
+"""The three pages of the dashboard: Recording, Delay & dimension, Invariants."""
