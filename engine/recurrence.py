@@ -29,6 +29,7 @@ from .errors import LagspaceError
 from .kernels.recurrence import line_histograms, pair_distances, recurrence_matrix
 from .progress import Stage
 
+MAX_POINTS = 20_000  # 2e8 pairs; at a 5 % rate 2e7 recurrences, about 0.3 GB with their copies
 MAX_DISTANCE_SAMPLES = 1_000_000  # pairs drawn to choose the radius when there are more
 
 
@@ -85,7 +86,7 @@ def recurrence_plot(x, delay: int, dimension: int, rate: float = 0.05, radius: f
     x = as_series(x)
     check_embedding(x.size, dimension, delay, minimum=3)
     delay, dimension = int(delay), int(dimension)
-    max_points = whole_number("max_points", max_points, 3)
+    max_points = whole_number("max_points (time and memory grow with its square)", max_points, 3, MAX_POINTS)
     theiler = whole_number("theiler", theiler, 0)
     seed = whole_number("seed", seed, 0)
     n = min(embedded_length(x.size, dimension, delay), max_points)

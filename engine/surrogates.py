@@ -71,7 +71,7 @@ def _iaaft(x: np.ndarray, rng, max_iterations: int) -> np.ndarray:
     return s
 
 
-def surrogate(x, kind: str = "iaaft", rng=None, max_iterations: int = IAAFT_MAX_ITERATIONS) -> np.ndarray:
+def surrogate(x, kind: str = "iaaft", rng=0, max_iterations: int = IAAFT_MAX_ITERATIONS) -> np.ndarray:
     """One surrogate of ``x``.
 
     - ``"ft"``: phase randomised (Theiler et al. 1992): the periodogram is kept
@@ -84,7 +84,7 @@ def surrogate(x, kind: str = "iaaft", rng=None, max_iterations: int = IAAFT_MAX_
       the rank order stops changing (or ``max_iterations``). Keeps the values
       exactly and the periodogram closely.
 
-    ``rng`` is a ``numpy.random.Generator`` (or a seed).
+    ``rng`` is a ``numpy.random.Generator`` or a seed (default 0: reproducible).
 
     References
     ----------
@@ -98,7 +98,7 @@ def surrogate(x, kind: str = "iaaft", rng=None, max_iterations: int = IAAFT_MAX_
     if kind == "aaft":
         gaussian = _rank_like(np.sort(rng.standard_normal(x.size)), x)
         return _rank_like(np.sort(x), _random_phases(np.fft.rfft(gaussian), x.size, rng))
-    return _iaaft(x, rng, int(max_iterations))
+    return _iaaft(x, rng, whole_number("max_iterations", max_iterations, 1))
 
 
 def _check_kind(kind) -> str:

@@ -113,6 +113,7 @@ def test_dataset_layout():
         lambda x: recurrence_plot(x, 1, 2, rate=1.5),
         lambda x: recurrence_plot(x, 1, 2, radius=-1.0),
         lambda x: recurrence_plot(x, 1, 2, theiler=500),
+        lambda x: recurrence_plot(x, 1, 2, max_points=10**6),
         lambda x: recurrence_quantification(x, 1, 2, min_line=1),
     ],
 )
