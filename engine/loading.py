@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 import xarray as xr
+from pandas.tseries.api import guess_datetime_format
 
 from .checks import attach_checks
 from .errors import RecordingError
@@ -403,8 +404,10 @@ def _column_values(col: pd.Series, label: str, base: str):
             warnings.simplefilter("ignore")
             stamps = pd.to_datetime(col, errors="coerce", format="ISO8601")
             if (stamps.isna().to_numpy() & present).any():
-                dayfirst = bool(re.match(r"\d{1,2}\.\d{1,2}\.\d{2,4}", str(col[present].iloc[0]).strip()))
-                stamps = pd.to_datetime(col, errors="coerce", format="mixed", dayfirst=dayfirst)
+                first = str(col[present].iloc[0]).strip()
+                dayfirst = bool(re.match(r"\d{1,2}\.\d{1,2}\.\d{2,4}", first))  # 31.01.2024 is day first
+                guess = guess_datetime_format(first, dayfirst=dayfirst) or "mixed"
+                stamps = pd.to_datetime(col, errors="coerce", format=guess, dayfirst=dayfirst)
         if not (stamps.isna().to_numpy() & present).any():
             seconds = (stamps - stamps.iloc[0]).dt.total_seconds()
             return "date", seconds.to_numpy(dtype=float)

@@ -46,6 +46,13 @@ def _rebuild(rec: xr.Dataset, values, time=None, *, units=None, long_name=None, 
     )
 
 
+def _series(rec) -> tuple[np.ndarray, np.ndarray]:
+    """(samples, times) of a Recording, after checking that it is one."""
+    if not isinstance(rec, xr.Dataset) or "time" not in rec.coords:
+        raise RecordingError("preparation needs a Recording (an xr.Dataset on a time coordinate), e.g. from load_recording")
+    return signal(rec), np.asarray(rec["time"].values, dtype=float)
+
+
 def _positive(label, value):
     if isinstance(value, bool) or not isinstance(value, (int, float, np.floating, np.integer)) or not (
         np.isfinite(value) and value > 0
@@ -54,19 +61,12 @@ def _positive(label, value):
     return float(value)
 
 
-def _increasing_time(rec, what):
-    t = np.asarray(rec["time"].values, dtype=float)
-    if t.size > 1 and not np.all(np.diff(t) > 0):
-        raise RecordingError(f"{what} needs time that increases from sample to sample: sort the rows by time and remove repeats")
-    return t
-
-
 def set_sampling_interval(rec: xr.Dataset, interval: float) -> xr.Dataset:
     """Re-stamp the time as ``t0 + i * interval`` in seconds (the file's own time is replaced)."""
+    x, t = _series(rec)
     dt = _positive("sampling_interval", interval)
-    t = rec["time"].values
     t0 = float(t[0]) if time_unit(rec) == "s" and t.size else 0.0
-    out = _rebuild(rec, signal(rec), t0 + dt * np.arange(t.size), unit_of_time="s")
+    out = _rebuild(rec, x, t0 + dt * np.arange(t.size), unit_of_time="s")
     out.attrs["sampling_interval"] = dt
     return append_step(out, {"step": "set_sampling_interval", "interval": dt, "time_unit": "s",
                              "previous_time_unit": time_unit(rec)})
@@ -81,8 +81,8 @@ def fill_gaps(rec: xr.Dataset, max_gap: int = 3) -> xr.Dataset:
     """
     if isinstance(max_gap, bool) or not isinstance(max_gap, (int, np.integer)) or max_gap < 1:
         raise RecordingError(f"max_gap must be a whole number of samples >= 1, got {max_gap!r}")
-    x = signal(rec).copy()
-    t = np.asarray(rec["time"].values, dtype=float)
+    x, t = _series(rec)
+    x = x.copy()
     runs = true_runs(~np.isfinite(x))
     interior = runs[(runs[:, 0] > 0) & (runs[:, 1] < x.size)] if len(runs) else runs
     edges = runs[(runs[:, 0] == 0) | (runs[:, 1] == x.size)] if len(runs) else runs
@@ -112,15 +112,15 @@ def resample(rec: xr.Dataset, interval: float | None = None) -> xr.Dataset:
 
     A sample next to a missing one stays missing (NaN spreads to its neighbours).
     """
-    t = _increasing_time(rec, "resampling")
-    if t.size < 2:
-        raise RecordingError("resampling needs at least two samples")
+    x, t = _series(rec)
+    if t.size < 2 or not np.all(np.diff(t) > 0):
+        raise RecordingError("resampling needs two or more samples with time increasing from each to the next: "
+                             "sort the rows by time and remove repeats")
     dt = float(np.median(np.diff(t))) if interval is None else _positive("interval", interval)
     count = int(np.floor((t[-1] - t[0]) / dt * (1 + 1e-12))) + 1
     if count > MAX_GRID:
         raise RecordingError(f"resampling at {dt:g} would make {count} samples (limit {MAX_GRID}): choose a longer interval")
     grid = t[0] + dt * np.arange(count)
-    x = signal(rec)
     out = _rebuild(rec, np.interp(grid, t, x), grid)
     out.attrs["sampling_interval"] = dt
     steps = np.diff(t)
@@ -141,7 +141,7 @@ def crop(rec: xr.Dataset, start: float | None = None, stop: float | None = None)
             raise RecordingError(f"crop {label} must be a time (a finite number), got {value!r}")
     if start is not None and stop is not None and not start < stop:
         raise RecordingError(f"crop start ({start}) must be before crop stop ({stop})")
-    t = np.asarray(rec["time"].values, dtype=float)
+    x, t = _series(rec)
     keep = np.ones(t.size, dtype=bool)
     if start is not None:
         keep &= t >= start
@@ -151,7 +151,7 @@ def crop(rec: xr.Dataset, start: float | None = None, stop: float | None = None)
         raise RecordingError(
             f"crop [{start}, {stop}] holds no samples; the recording runs from {t.min():g} to {t.max():g} {time_unit(rec)}"
         )
-    out = _rebuild(rec, signal(rec)[keep], t[keep])
+    out = _rebuild(rec, x[keep], t[keep])
     return append_step(out, {"step": "crop", "start": start, "stop": stop, "samples_before": int(t.size),
                              "samples_after": int(keep.sum())})
 
@@ -164,9 +164,9 @@ def detrend(rec: xr.Dataset, kind: str = "mean") -> xr.Dataset:
     """
     if kind not in DETREND_KINDS:
         raise RecordingError(f"detrend must be one of {', '.join(DETREND_KINDS)}, got {kind!r}")
+    x, t = _series(rec)
     if kind == "none":
         return rec
-    x = signal(rec)
     good = np.isfinite(x)
     if not good.any():
         raise RecordingError("detrending needs finite samples; this recording has none")
@@ -174,7 +174,6 @@ def detrend(rec: xr.Dataset, kind: str = "mean") -> xr.Dataset:
         mean = float(x[good].mean())
         out, removed = x - mean, {"mean": mean}
     else:
-        t = np.asarray(rec["time"].values, dtype=float)
         if good.sum() < 2:
             raise RecordingError("linear detrending needs at least two finite samples")
         slope, intercept = np.polyfit(t[good] - t[0], x[good], 1)
@@ -185,7 +184,7 @@ def detrend(rec: xr.Dataset, kind: str = "mean") -> xr.Dataset:
 
 def standardise(rec: xr.Dataset) -> xr.Dataset:
     """Subtract the mean and divide by the standard deviation; the units become ``"1"``."""
-    x = signal(rec)
+    x, _ = _series(rec)
     good = np.isfinite(x)
     std = float(x[good].std()) if good.any() else 0.0
     if not std > 0:
@@ -200,7 +199,7 @@ def standardise(rec: xr.Dataset) -> xr.Dataset:
 
 def _regularise_time(rec: xr.Dataset) -> xr.Dataset:
     """Put an evenly sampled (within tolerance) recording on exact times ``t0 + i dt``."""
-    t = np.asarray(rec["time"].values, dtype=float)
+    x, t = _series(rec)
     if t.size < 2:
         return rec
     dt = float(np.median(np.diff(t)))
@@ -208,7 +207,7 @@ def _regularise_time(rec: xr.Dataset) -> xr.Dataset:
     dt = stated if abs(stated - dt) <= 1e-9 * dt else dt
     grid = t[0] + dt * np.arange(t.size)
     shift = float(np.max(np.abs(t - grid)))
-    out = _rebuild(rec, signal(rec), grid)
+    out = _rebuild(rec, x, grid)
     out.attrs["sampling_interval"] = dt
     if shift <= 1e-9 * dt:
         return out
