@@ -12,7 +12,7 @@ N samples cannot credibly resolve a correlation dimension above about
 References
 ----------
 Packard, Crutchfield, Farmer & Shaw, Phys. Rev. Lett. 45 (1980) 712.
-Takens, in Dynamical Systems and Turbulence, Springer LNM 898 (1981) 366.
+Takens, in Dynamical Systems and Turbulence (Rand & Young, eds.), Springer (1981) 366.
 Eckmann & Ruelle, Physica D 56 (1992) 185.
 """
 

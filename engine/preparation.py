@@ -11,7 +11,7 @@ says how much it changed.
 References
 ----------
 Packard, Crutchfield, Farmer & Shaw, Phys. Rev. Lett. 45 (1980) 712.
-Takens, in Dynamical Systems and Turbulence, Springer LNM 898 (1981) 366.
+Takens, in Dynamical Systems and Turbulence (Rand & Young, eds.), Springer (1981) 366.
 """
 
 from __future__ import annotations
