@@ -203,6 +203,11 @@ def _first_clear_minimum(m: np.ndarray, facts: dict):
     return None, None
 
 
+def _lag_text(lag: int, dt: float, time_unit: str) -> str:
+    unit = str(time_unit)
+    return f"{lag}" if unit == "sample" else f"{lag} ({lag * dt:.4g} {unit})"
+
+
 def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0, time_unit: str = "sample") -> dict:
     """Suggest a delay with the reason, alternatives and warnings.
 
@@ -232,8 +237,8 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
     lag, floor_lag = _first_clear_minimum(m, facts)
     if lag is not None:
         method = "first minimum of mutual information"
-        reason = (f"the mutual information has its first clear minimum at lag {lag} "
-                  f"({m[lag]:.3g} nats, down from {m[1]:.3g} at lag 1)")
+        reason = (f"the mutual information has its first clear minimum at lag {_lag_text(lag, dt, time_unit)} "
+                  f"where it is {m[lag]:.3g} nats, down from {m[1]:.3g} at lag 1")
         if m[lag] < SHALLOW * m[1]:
             warnings.append(
                 f"the minimum is shallow ({m[lag]:.2g} nats, under a tenth of the lag-1 value), where the curve "
@@ -247,9 +252,10 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
         lag = times["one_over_e"]
         if lag is not None:
             method = "autocorrelation 1/e"
-            reason = f"{why}; using the first lag at which the autocorrelation drops below 1/e, {lag}"
+            reason = (f"{why}; using the first lag at which the autocorrelation drops below 1/e, "
+                      f"{_lag_text(lag, dt, time_unit)}")
             if lag == 1:
-                reason += " (the series decorrelates within one sample, as maps do; delay 1 is usual there)"
+                reason += "; the series decorrelates within one sample, as maps do, and delay 1 is usual there"
         else:
             method = "none"
             reason = f"{why}, and the autocorrelation stays above 1/e up to lag {m.size - 1}: increase max_lag"
