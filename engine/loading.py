@@ -202,17 +202,31 @@ def _too_big(base, size, limit):
     )
 
 
+def _magic(data: bytes) -> str | None:
+    """The binary format that ``data`` starts like, if any."""
+    if data[:4] in (b"CDF\x01", b"CDF\x02"):
+        return "scipy"  # classic NetCDF3
+    if data[:8] == b"\x89HDF\r\n\x1a\n":
+        return "h5netcdf"  # NetCDF4 is HDF5 inside
+    if data[:6] == b"\x93NUMPY":
+        return "npy"
+    if data[:4] == b"RIFF" and data[8:12] == b"WAVE":
+        return "wav"
+    return None
+
+
 def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
     ext = os.path.splitext(base)[1].lower()
+    kind = _magic(data)
     if data[:4] == b"CDF\x05":
         raise RecordingError(f"{base} is 64-bit-data NetCDF (CDF-5), which cannot be read: save it as NetCDF4 or NetCDF3")
-    if data[:4] in (b"CDF\x01", b"CDF\x02"):
-        return _read_netcdf(data, base, "scipy")
-    if data[:8] == b"\x89HDF\r\n\x1a\n":
-        return _read_netcdf(data, base, "h5netcdf")
-    if data[:6] == b"\x93NUMPY":
+    if kind in ("scipy", "h5netcdf", "wav") and time_column is not None:
+        raise RecordingError(f"time_column applies to text and .npy files; {base} carries its own time: leave time_column out")
+    if kind in ("scipy", "h5netcdf"):
+        return _read_netcdf(data, base, kind)
+    if kind == "npy":
         return _read_npy(data, base, time_column)
-    if data[:4] == b"RIFF" and data[8:12] == b"WAVE":
+    if kind == "wav":
         return _read_wav(data, base)
     if ext in (".nc", ".nc3", ".nc4", ".cdf", ".h5", ".hdf5", ".npy", ".wav"):
         raise RecordingError(f"{base} does not start like a {ext} file (damaged or misnamed): give a {FORMATS} file")

@@ -156,6 +156,9 @@ def test_netcdf_both_kinds(tmp_path, x, engine, magic):
     with pytest.raises(RecordingError) as err:
         load_recording(path)
     assert "temperature" in one_line(err)
+    with pytest.raises(RecordingError) as err:
+        load_recording(path, variable="temperature", time_column="time")
+    assert "time_column" in one_line(err)
 
 
 @pytest.mark.parametrize("engine", ["h5netcdf", "scipy"])
