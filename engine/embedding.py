@@ -3,7 +3,7 @@
 References
 ----------
 Packard, Crutchfield, Farmer & Shaw, Phys. Rev. Lett. 45 (1980) 712.
-Takens, in Lecture Notes in Mathematics 898 (1981) 366.
+Takens, in Dynamical Systems and Turbulence (Rand & Young, eds.), Springer (1981) 366.
 """
 
 from __future__ import annotations
