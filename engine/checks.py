@@ -50,7 +50,8 @@ def _finding(code, severity, message, fix, **details) -> dict:
 def check_recording(
     rec: xr.Dataset,
     *,
-    min_samples: int = 500,
+    min_samples: int = 200,
+    few_samples: int = 2000,
     gap_factor: float = 1.5,
     jitter_tolerance: float = 0.01,
     quantisation_levels: int = 50,
@@ -63,6 +64,8 @@ def check_recording(
     rec : a Recording
     min_samples : fewer samples than this are refused (common practice: delay
         embedding statistics need hundreds to thousands of samples).
+    few_samples : fewer samples than this are accepted with a warning that the
+        invariants will be fragile.
     gap_factor : a time step longer than ``gap_factor`` times the median is a gap.
     jitter_tolerance : largest accepted relative deviation of a time step from
         the median step.
@@ -87,7 +90,7 @@ def check_recording(
     x = signal(rec)
     t = np.asarray(rec["time"].values, dtype=float)
     findings = []
-    findings += _length(x.size, min_samples)
+    findings += _length(x.size, min_samples, few_samples)
     findings += _not_finite(x)
     finite = x[np.isfinite(x)]
     if finite.size and np.ptp(finite) == 0:
@@ -107,7 +110,7 @@ def check_recording(
     return findings
 
 
-def _length(n, min_samples):
+def _length(n, min_samples, few_samples):
     if n < min_samples:
         return [_finding(
             "too_short", "refuse",
@@ -115,7 +118,15 @@ def _length(n, min_samples):
             f"use a longer recording (at least {min_samples} samples) or a shorter crop", samples=n,
         )]
     ceiling = 2 * math.log10(n) if n > 1 else 0.0
-    return [_finding(
+    short = []
+    if n < few_samples:
+        short = [_finding(
+            "few_samples", "warn",
+            f"only {n} samples: delay and dimension can be estimated, but dimensions and exponents will be fragile",
+            f"record at least {few_samples} samples (ideally 10,000 or more) for invariants you can defend",
+            samples=n,
+        )]
+    return short + [_finding(
         "dimension_ceiling", "note",
         f"{n} samples cannot credibly resolve a correlation dimension above about {ceiling:.1f} "
         "(2 log10 N, Eckmann & Ruelle 1992)",

@@ -37,9 +37,11 @@ def test_clean_chaotic_recording_passes():
 
 
 def test_too_short():
-    findings = check_recording(make_recording(henon(499)))
-    assert "too_short" in codes(findings, "refuse")  # 500 samples: common practice
-    assert "too_short" not in codes(check_recording(make_recording(henon(500))))
+    findings = check_recording(make_recording(henon(199)))
+    assert "too_short" in codes(findings, "refuse")  # a few hundred samples at least: common practice
+    fewer = check_recording(make_recording(henon(200)))
+    assert "too_short" not in codes(fewer) and "few_samples" in codes(fewer, "warn")
+    assert "few_samples" not in codes(check_recording(make_recording(henon(2000))))
 
 
 def test_missing_values_listed_compactly():
