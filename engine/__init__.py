@@ -5,4 +5,10 @@ Every public function takes data and settings and returns new data (mostly
 library.
 """
 
+import os
+
+# Kernels run in parallel from several dashboard threads at once: numba's default
+# work-queue layer is not safe for that, "threadsafe" picks OpenMP or TBB.
+os.environ.setdefault("NUMBA_THREADING_LAYER", "threadsafe")
+
 __version__ = "0.1.0"

@@ -105,6 +105,13 @@ def estimate(recording: xr.Dataset, settings: Settings | None = None, progress=N
 
 
 def _apply_delay_override(suggestion: dict, settings: Settings, dt: float, unit: str) -> int:
+    if suggestion.get("samples") is None:
+        suggestion.update(
+            samples=1, time=dt, method="fallback",
+            reason=f"no delay could be read off the data ({suggestion.get('reason', 'no minimum, no decay')}); "
+                   "using 1 sample, the usual choice for maps; set a delay yourself if the signal is a flow",
+        )
+        suggestion.setdefault("warnings", []).append("the delay is a fallback of 1 sample, not an estimate")
     if settings.delay is None:
         return int(suggestion["samples"])
     suggested = dict(suggestion)

@@ -94,6 +94,9 @@ class Settings:
         positive_int("recurrence_max_points", self.recurrence_max_points, minimum=10)
         positive_int("min_line", self.min_line, minimum=2)
         positive_int("seed", self.seed, minimum=0)
+        if isinstance(self.surrogates, int) and 0 < self.surrogates < 19:
+            errs.append(f"surrogates must be 0 (no test) or at least 19 (one-sided rank test at 5%), "
+                        f"got {self.surrogates}")
         if not (0 < self.recurrence_rate < 1):
             errs.append(f"recurrence_rate must be between 0 and 1, got {self.recurrence_rate!r}")
         if self.detrend not in DETREND_KINDS:
