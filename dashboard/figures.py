@@ -221,3 +221,177 @@ def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layou
         plots.append(hv.Path([v]).opts(color=style.INK, line_width=0.5, alpha=0.8, xaxis=None, yaxis=None,
                                        width=170, height=170, title=f"delay {d}", toolbar=None))
     return hv.Layout(plots).cols(len(plots) or 1)
+
+
+# -- invariants ---------------------------------------------------------------------------------------
+def _coord_label(ds: xr.Dataset, dim: str, fallback: str) -> hv.Dimension:
+    attrs = ds[dim].attrs if dim in ds.coords else {}
+    label = attrs.get("long_name", fallback)
+    units = attrs.get("units", "1")
+    return hv.Dimension(dim, label=label if units in ("", "1") else f"{label} ({units})")
+
+
+def _per_dimension(ds: xr.Dataset, var: str, xdim: str, chosen: int | None, label: hv.Dimension,
+                   **opts) -> list[hv.Curve]:
+    """One curve of ``var`` against ``xdim`` per embedding dimension (the chosen one thicker)."""
+    dims = ds["dimension"].values
+    curves = []
+    for i, m in enumerate(dims):
+        y = ds[var].sel(dimension=m).values
+        ok = np.isfinite(y)
+        if not ok.any():
+            continue
+        thick = chosen is not None and int(m) == int(chosen)
+        curves.append(hv.Curve((ds[xdim].values[ok], y[ok]), kdims=[label],
+                               vdims=[hv.Dimension(var, label=_var_label(ds, var))], label=f"m = {int(m)}").opts(
+            color=style.CLAY if thick else style.dimension_colour(i, len(dims)),
+            line_width=3 if thick else 1.5, tools=["hover"], **opts))
+    return curves
+
+
+def selectable(fig):
+    """The element of a figure that a range selection stream attaches to (its first curve)."""
+    for el in (fig.traverse(lambda e: e, [hv.Curve]) if fig is not None else []):
+        return el
+    return None
+
+
+def local_slopes(results: xr.Dataset, summary: dict):
+    """Local slopes d log C / d log r against radius per dimension, the scaling range shaded and
+    the correlation dimension drawn across it. Select a range of radii to refit."""
+    if results is None or "local_slope" not in results:
+        return _note("no local slopes")
+    d2 = summary.get("correlation_dimension") or {}
+    m = (summary.get("embedding_dimension") or {}).get("value")
+    radius = _coord_label(results, "radius", "radius")
+    curves = _per_dimension(results, "local_slope", "radius", m, radius, logx=True,
+                            tools=["hover", "xbox_select"], **style.PLOT)
+    parts = list(curves)
+    rng = d2.get("scaling_range")
+    if rng:
+        parts.insert(0, hv.VSpan(*rng).opts(color=style.SAND, alpha=0.5))
+    if d2.get("value") is not None:
+        parts.append(hv.HLine(d2["value"]).opts(color=style.CLAY, line_dash="dashed", line_width=1.5))
+    title = ("correlation dimension D2 = " + _pm(d2) if d2.get("value") is not None
+             else f"no correlation dimension: {d2.get('reason', 'no scaling range')}")
+    return hv.Overlay(parts).opts(title=title, legend_position="right", show_legend=True)
+
+
+def correlation_sums(results: xr.Dataset, summary: dict):
+    """Correlation sums C(r) against radius on log-log axes, one curve per dimension."""
+    if results is None or "correlation_sum" not in results:
+        return _note("no correlation sums")
+    m = (summary.get("embedding_dimension") or {}).get("value")
+    radius = _coord_label(results, "radius", "radius")
+    masked = results["correlation_sum"].where(results["correlation_sum"] > 0)
+    curves = _per_dimension(results.assign(correlation_sum=masked), "correlation_sum", "radius", m, radius,
+                            logx=True, logy=True, **style.PLOT)
+    parts = list(curves)
+    rng = (summary.get("correlation_dimension") or {}).get("scaling_range")
+    if rng:
+        parts.insert(0, hv.VSpan(*rng).opts(color=style.SAND, alpha=0.5))
+    return hv.Overlay(parts).opts(title="correlation sums", legend_position="right")
+
+
+def divergence(results: xr.Dataset, summary: dict):
+    """Mean log divergence of neighbours against steps, the fit range shaded. Select a range of
+    steps to refit the largest Lyapunov exponent."""
+    if results is None or "divergence" not in results:
+        return _note("no divergence curves")
+    lle = summary.get("largest_lyapunov_exponent") or {}
+    m = (summary.get("embedding_dimension") or {}).get("value")
+    step = _coord_label(results, "step", "steps ahead")
+    parts = _per_dimension(results, "divergence", "step", m, step, tools=["hover", "xbox_select"], **style.PLOT)
+    fit = lle.get("fit_range")
+    if fit:
+        parts.insert(0, hv.VSpan(*fit).opts(color=style.SAND, alpha=0.5))
+    unit = (summary.get("input") or {}).get("time_unit", "sample")
+    title = (f"largest Lyapunov exponent {_pm(lle, 'per_time_unit')} per {unit}"
+             if lle.get("per_time_unit") is not None else f"no exponent: {lle.get('reason', 'no fit range')}")
+    return hv.Overlay(parts).opts(title=title, legend_position="right")
+
+
+def box_counting(results: xr.Dataset, summary: dict):
+    """Occupied boxes against box size on log-log axes, the fit range shaded."""
+    if results is None or "box_count" not in results:
+        return _note("no box counts")
+    cap = summary.get("capacity_dimension") or {}
+    size = _coord_label(results, "box_size", "box size")
+    counts = results["box_count"]
+    ok = np.isfinite(counts.values) & (counts.values > 0)
+    curve = hv.Curve((results["box_size"].values[ok], counts.values[ok]), kdims=[size],
+                     vdims=[hv.Dimension("box_count", label=_var_label(results, "box_count"))]).opts(
+        color=style.INK, line_width=2, logx=True, logy=True, tools=["hover"], **style.PLOT)
+    parts = [curve, hv.Scatter(curve.data, kdims=[size], vdims=["box_count"]).opts(color=style.INK, size=5)]
+    fit = cap.get("fit_range")
+    if fit:
+        parts.insert(0, hv.VSpan(*fit).opts(color=style.SAND, alpha=0.5))
+    title = (f"capacity dimension {_pm(cap)}" if cap.get("value") is not None
+             else f"no capacity dimension: {cap.get('reason', 'no fit range')}")
+    return hv.Overlay(parts).opts(title=title)
+
+
+def surrogate_histogram(results: xr.Dataset, summary: dict):
+    """Histogram of the surrogates' statistic with the data's value marked."""
+    test = summary.get("surrogate_test") or {}
+    if results is None or "surrogate_statistic" not in results:
+        return _note(test.get("reason") or "no surrogate test")
+    values = results["surrogate_statistic"].values
+    values = values[np.isfinite(values)]
+    counts, edges = np.histogram(values, bins=max(5, min(20, values.size // 2)))
+    label = _var_label(results, "surrogate_statistic")
+    hist = hv.Histogram((edges, counts), kdims=[hv.Dimension("statistic", label=label)],
+                        vdims=[hv.Dimension("count", label="surrogates")]).opts(
+        color=style.DIMENSION_RAMP[2], line_color="white", tools=["hover"], **style.PLOT)
+    parts = [hist]
+    if test.get("data_statistic") is not None:
+        parts.append(hv.VLine(test["data_statistic"]).opts(color=style.CLAY, line_width=3))
+    p = test.get("p_value")
+    title = f"{test.get('surrogates', values.size)} surrogates; data (line) p = {_fmt(p, 2)}"
+    return hv.Overlay(parts).opts(title=title)
+
+
+def recurrence_plot(results: xr.Dataset, pixels: int = 400):
+    """The recurrence plot as an image of the density of recurrent pairs (mirrored about the
+    diagonal), binned to at most ``pixels`` per side for the screen."""
+    if results is None or "recurrence_row" not in results:
+        return _note("no recurrence plot")
+    facts = _attr(results, "recurrence", {}) or {}
+    n = int(facts.get("points_used") or (int(results["recurrence_column"].max()) + 1))
+    rows, cols = results["recurrence_row"].values, results["recurrence_column"].values
+    side = min(pixels, n)
+    edges = np.linspace(0, n, side + 1)
+    grid, _, _ = np.histogram2d(np.concatenate([rows, cols]), np.concatenate([cols, rows]), bins=[edges, edges])
+    cell = (n / side) ** 2
+    img = hv.Image(np.flipud(grid / cell), bounds=(0, 0, n, n),
+                   kdims=[hv.Dimension("j", label="delay vector j"), hv.Dimension("i", label="delay vector i")],
+                   vdims=[hv.Dimension("density", label="fraction recurrent")])
+    rate = facts.get("recurrence_rate")
+    return img.opts(cmap=["#ffffff", style.INK], frame_width=380, frame_height=380, colorbar=False,
+                    tools=["hover"], toolbar="above",
+                    title=f"recurrence plot, {n:,} vectors, radius {_fmt(facts.get('radius'))}, "
+                          f"rate {_fmt(rate, 2)}")
+
+
+def space_time(results: xr.Dataset, theiler: int | None):
+    """Space-time separation: distance quantiles against time separation, Theiler window marked."""
+    if results is None or "space_time_quantile" not in results:
+        return _note("no space-time separation plot")
+    sep = _coord_label(results, "separation", "time separation")
+    parts = []
+    qs = results["quantile"].values
+    for i, q in enumerate(qs):
+        y = results["space_time_quantile"].sel(quantile=q).values
+        parts.append(hv.Curve((results["separation"].values, y), kdims=[sep],
+                              vdims=[hv.Dimension("d", label=_var_label(results, "space_time_quantile"))],
+                              label=f"{100 * q:g}%").opts(color=style.dimension_colour(i, len(qs)), line_width=1.5,
+                                                          tools=["hover"], **style.PLOT))
+    if theiler is not None:
+        parts.append(hv.VLine(theiler).opts(color=style.CLAY, line_dash="dashed", line_width=2))
+    return hv.Overlay(parts).opts(title=f"space-time separation — Theiler window {theiler} samples",
+                                  legend_position="right")
+
+
+def _pm(est: dict, key: str = "value") -> str:
+    value, unc = est.get(key), est.get("uncertainty")
+    return _fmt(value) + ("" if unc is None else f" ± {_fmt(unc, 2)}")

@@ -6,14 +6,13 @@ address needs a password file (or an explicit ``allow_unprotected=True``).
 
 from __future__ import annotations
 
-import importlib.util
 import ipaddress
 import logging
 import secrets
-import threading
 from pathlib import Path
 
 from engine.errors import LagspaceError
+from engine.warmup import warm_up_in_background
 
 log = logging.getLogger(__name__)
 
@@ -61,21 +60,6 @@ def _origins(address: str, port: int) -> list[str]:
     return sorted({f"localhost:{port}", f"127.0.0.1:{port}", f"{address}:{port}"})
 
 
-def _warm_up() -> None:
-    """Compile the engine's kernels in the background (if the engine offers it)."""
-    if importlib.util.find_spec("engine.warmup") is None:
-        return
-    from engine.warmup import warm_up
-
-    def run():
-        try:
-            warm_up()
-        except Exception:  # warm-up is an optimisation; never stop the server for it
-            log.exception("kernel warm-up failed")
-
-    threading.Thread(target=run, name="lagspace-warmup", daemon=True).start()
-
-
 def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show: bool = False,
           password_file=None, allow_unprotected: bool = False):
     """Start the dashboard server and block until it is stopped (Ctrl-C).
@@ -104,7 +88,7 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
     auth = {}
     if password_file is not None:
         auth = dict(basic_auth=_read_password(password_file), cookie_secret=secrets.token_hex(32))
-    _warm_up()
+    warm_up_in_background()  # compile the engine's kernels while the first user uploads
     host = "localhost" if _is_local(address) else address
     print(f"lagspace dashboard: http://{host}:{port}/  (Ctrl-C stops it)", flush=True)
     def session():

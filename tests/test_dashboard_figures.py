@@ -90,3 +90,38 @@ def test_recording_figures_render(lorenz_rec):
                 figures.rotated_view(lorenz_rec, 16), figures.delay_multiples(lorenz_rec, [4, 16]),
                 figures.spectrum(None, {"time": 0.7, "strength": 0.3}, unit="s")):
         assert hv.render(fig) is not None
+
+
+def test_recurrence_image_is_the_symmetric_recurrence_matrix():
+    # Reference: the dense matrix from scipy.spatial.distance.cdist (max norm, as the engine uses)
+    # at the engine's radius, outside the Theiler band; at full resolution each pixel is one pair.
+    from scipy.spatial.distance import cdist
+
+    from engine.recording import json_attr
+    from engine.recurrence import recurrence_quantification
+
+    x = np.asarray(systems.henon(400))
+    ds = recurrence_quantification(x, delay=1, dimension=2, rate=0.05, max_points=200, theiler=1)
+    radius = json_attr(ds, "recurrence")["radius"]
+    v = np.column_stack([x[:200], x[1:201]])
+    offset = np.abs(np.subtract.outer(np.arange(200), np.arange(200)))
+    expected = (cdist(v, v, "chebyshev") <= radius) & (offset > 1)
+    img = figures.recurrence_plot(ds, pixels=400)
+    shown = np.array([[img[j + 0.5, i + 0.5] for j in range(200)] for i in range(200)])
+    assert np.array_equal(shown > 0, expected)
+    assert hv.render(img) is not None
+
+
+def test_surrogate_histogram_counts_every_surrogate_and_marks_the_data():
+    from engine.recording import json_attr
+    from engine.surrogates import surrogate_test
+
+    x = np.asarray(systems.henon(1000))
+    ds = surrogate_test(x, kind="ft", statistic="time_asymmetry", count=19, seed=1, delay=1, dimension=2,
+                        sided="one")
+    summary = {"surrogate_test": json_attr(ds, "surrogate_test")}
+    overlay = figures.surrogate_histogram(ds, summary)
+    hist, line = overlay.get(0), overlay.get(1)
+    assert hist.dimension_values(1).sum() == 19
+    assert line.data == summary["surrogate_test"]["data_statistic"]
+    assert hv.render(overlay) is not None

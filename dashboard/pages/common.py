@@ -88,7 +88,8 @@ class BundleTools(pn.viewable.Viewer):
         super().__init__(**params)
         self._download = pn.widgets.FileDownload(callback=self._bundle, filename="lagspace.zip",
                                                  label="Download bundle", button_type="primary",
-                                                 sizing_mode="stretch_width", disabled=True)
+                                                 sizing_mode="stretch_width", disabled=True,
+                                                 css_classes=["download-bundle"])
         self._open = pn.widgets.FileInput(accept=".zip", multiple=False, sizing_mode="stretch_width",
                                           css_classes=["open-bundle"])
         self._open.param.watch(self._on_open, "value")

@@ -115,13 +115,15 @@ class InvariantsPage(pn.viewable.Viewer):
         super().__init__(**params)
         st = self.state.settings
         self._surrogates = pn.widgets.IntInput(name="Surrogates (19 for a one-sided test, 39 two-sided)",
-                                               value=st.surrogates, start=0, end=999, width=300)
+                                               value=st.surrogates, start=0, end=999, width=300,
+                                               css_classes=["surrogate-count"])
         self._kind = pn.widgets.Select(name="Surrogate kind", value=st.surrogate_kind, width=300,
                                        options={KIND_WORDS.get(k, k): k for k in SURROGATE_KINDS})
         self._statistic = pn.widgets.Select(name="Test statistic", value=st.surrogate_statistic, width=250,
                                             options={STATISTIC_WORDS.get(k, k): k for k in SURROGATE_STATISTICS})
         self._seed = pn.widgets.IntInput(name="Seed (for every random choice)", value=st.seed, start=0, width=220)
-        self._run = pn.widgets.Button(name="Run the analysis", button_type="primary", width=200, height=40)
+        self._run = pn.widgets.Button(name="Run the analysis", button_type="primary", width=200, height=40,
+                                      css_classes=["run-analysis"])
         self._run.on_click(self._on_run)
         self._intro = pn.pane.HTML(sizing_mode="stretch_width")
         self._verdict = pn.pane.Alert("", alert_type="info", visible=False, sizing_mode="stretch_width")

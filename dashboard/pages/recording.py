@@ -186,7 +186,7 @@ class RecordingPage(pn.viewable.Viewer):
                     f"{SEVERITY_WORDS.get(sev, sev)}</span> {esc(finding.get('message', ''))}")
             if finding.get("fix"):
                 text += f"<br><small><b>Fix:</b> {esc(finding['fix'])}</small>"
-            row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6))]
+            row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6), css_classes=["check-finding"])]
             if self.state.fix_changes(finding):
                 button = pn.widgets.Button(name="Apply fix", button_type="primary", width=110, align="center")
                 button.on_click(lambda event, f=finding: self._on_fix(f))

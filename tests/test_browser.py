@@ -1,0 +1,140 @@
+"""End to end in headless Chromium: upload, checks, suggestions, run, download, re-open, same numbers.
+
+The server runs in a subprocess on a free port. Skips only when Chromium is missing and the
+``CI`` environment variable is not set (in CI a missing browser is a failure).
+"""
+
+import io
+import os
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+import zipfile
+from pathlib import Path
+
+import pytest
+from playwright.sync_api import sync_playwright
+
+import systems
+
+CHROMIUM = "/usr/bin/chromium"
+ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
+        "--disable-sync", "--no-first-run", "--disable-quic"]
+ROOT = Path(__file__).resolve().parent.parent
+BUNDLE_MEMBERS = {"manifest.json", "recording.nc", "diagnostics.nc", "results.nc", "settings.json",
+                  "summary.json", "report.html"}
+
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
+if not os.path.exists(CHROMIUM) and not os.environ.get("CI"):
+    pytestmark.append(pytest.mark.skip(reason="no Chromium at /usr/bin/chromium (install it: see BROWSER.md)"))
+
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture(scope="module")
+def server():
+    port = _free_port()
+    proc = subprocess.Popen(
+        [sys.executable, "-c", f"from dashboard.server import serve; serve(port={port})"],
+        cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    url = f"http://127.0.0.1:{port}/"
+    deadline = time.monotonic() + 90
+    while True:
+        try:
+            urllib.request.urlopen(url, timeout=2)
+            break
+        except OSError:
+            if proc.poll() is not None or time.monotonic() > deadline:
+                proc.kill()
+                raise RuntimeError(f"dashboard server did not start:\n{proc.stdout.read()}")
+            time.sleep(0.5)
+    yield url
+    proc.terminate()
+    try:
+        proc.wait(10)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+
+
+@pytest.fixture(scope="module")
+def browser():
+    with sync_playwright() as pw:
+        b = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
+        yield b
+        b.close()
+
+
+@pytest.fixture(scope="module")
+def recording_file(tmp_path_factory):
+    x = systems.lorenz(3000, dt=0.01)
+    path = tmp_path_factory.mktemp("data") / "lorenz_x.csv"
+    path.write_text("time_s,x_V\n" + "\n".join(f"{0.01 * i:.2f},{v:.9g}" for i, v in enumerate(x)) + "\n")
+    return path
+
+
+def _open(browser, url):
+    page = browser.new_page(viewport={"width": 1400, "height": 1000}, accept_downloads=True)
+    problems = []
+    page.on("console", lambda m: problems.append(m.text) if m.type == "error" else None)
+    page.on("pageerror", lambda e: problems.append(str(e)))
+    page.goto(url)
+    page.get_by_text("1 · Recording").first.wait_for(timeout=60_000)
+    return page, problems
+
+
+def _results(page) -> str:
+    table = page.locator("table.results")
+    table.wait_for(timeout=240_000)
+    return table.inner_text()
+
+
+def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
+    page, problems = _open(browser, server)
+
+    # 1. upload: the sample count, the interval with its unit, and the checks appear
+    page.locator("input.filepond--browser").set_input_files(str(recording_file))
+    page.locator("table.facts").get_by_text("3,000").wait_for(timeout=60_000)
+    assert page.locator("table.facts").get_by_text("0.01 s").count() == 1
+    assert page.locator(".check-finding").count() >= 1
+
+    # 2. the suggestions arrive with their reasons; accept them as they are
+    page.get_by_text("2 · Delay & dimension").first.click()
+    page.get_by_text("Why:").first.wait_for(timeout=120_000)
+    assert page.get_by_text("Why:").count() >= 2
+
+    # 3. run with a cheap surrogate test and read the numbers
+    page.get_by_text("3 · Invariants").first.click()
+    count = page.locator(".surrogate-count input")
+    count.fill("19")
+    count.press("Enter")
+    page.locator(".run-analysis button").click()
+    first = _results(page)
+    assert "Correlation dimension D2" in first and "Largest Lyapunov exponent" in first
+    assert "per s" in first  # exponents carry their time unit
+    assert page.get_by_text("research tool, not a diagnostic").count() >= 1
+
+    # 4. download the bundle and check what it holds
+    with page.expect_download(timeout=60_000) as info:
+        page.locator(".download-bundle button").click()
+    saved = tmp_path / "bundle.zip"
+    info.value.save_as(saved)
+    with zipfile.ZipFile(saved) as zf:
+        assert BUNDLE_MEMBERS <= set(zf.namelist())
+        assert zf.testzip() is None
+
+    # 5. a fresh session opens the bundle and shows the same numbers
+    fresh, fresh_problems = _open(browser, server)
+    fresh.locator("input[type=file][accept='.zip']").set_input_files(str(saved))
+    fresh.get_by_text("3 · Invariants").first.click()
+    assert _results(fresh) == first
+
+    assert problems == [] and fresh_problems == []
+    page.close()
+    fresh.close()
