@@ -34,6 +34,7 @@ DATA_MEMBERS = ("recording.nc", "diagnostics.nc", "results.nc", "settings.json",
 OPTIONAL_MEMBERS = ("results.nc",)
 MAX_INFLATED = 2_000_000_000  # bytes, all members together
 MAX_RATIO = 200  # inflated / compressed, per member
+MAX_VALUES = 50_000_000  # numbers in one NetCDF member, all variables together
 
 
 def _software() -> dict:
@@ -119,15 +120,20 @@ def is_bundle(path) -> bool:
     try:
         with zipfile.ZipFile(path) as zf:
             return "manifest.json" in zf.namelist()
-    except (zipfile.BadZipFile, OSError):
+    except Exception:  # zipfile raises many types (BadZipFile, ValueError, UnicodeDecodeError...) for damaged zips
         return False
+
+
+def _brief(exc: Exception) -> str:
+    """An exception as one short line: its type and first words."""
+    return f"{type(exc).__name__}: {' '.join(str(exc).split())[:120]}"
 
 
 def _read_members(source, max_inflated: int) -> dict:
     try:
         zf = zipfile.ZipFile(io.BytesIO(source) if isinstance(source, (bytes, bytearray)) else source)
-    except (zipfile.BadZipFile, OSError) as exc:
-        raise BundleError(f"not a readable zip file ({exc}); open a bundle downloaded from lagspace") from None
+    except Exception as exc:  # zipfile raises many types for damaged archives
+        raise BundleError(f"not a readable zip file ({_brief(exc)}); open a bundle downloaded from lagspace") from None
     with zf:
         infos = zf.infolist()
         allowed = set(DATA_MEMBERS) | {"manifest.json"}
@@ -147,10 +153,15 @@ def _read_members(source, max_inflated: int) -> dict:
                                   " times its size, which no lagspace bundle does; it may be a zip bomb")
         out = {}
         for info in infos:
-            with zf.open(info) as fh:
-                data = fh.read(info.file_size + 1)
+            try:
+                with zf.open(info) as fh:
+                    data = fh.read(info.file_size + 1)
+            except Exception as exc:  # BadZipFile, zlib.error, NotImplementedError (method), RuntimeError (encrypted)...
+                raise BundleError(f"bundle member {info.filename!r} cannot be read ({_brief(exc)}); "
+                                  "the file is damaged: open a bundle as lagspace wrote it") from None
             if len(data) != info.file_size:
-                raise BundleError(f"bundle member {info.filename!r} is larger than its header says")
+                raise BundleError(f"bundle member {info.filename!r} does not have the size its header says; "
+                                  "the file is damaged: open a bundle as lagspace wrote it")
             out[info.filename] = data
     return out
 
@@ -160,7 +171,6 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
 
     Raises :class:`BundleError` for anything malformed, tampered with or unsafe.
     """
-    from .analysis import Analysis
     from .summary import summarise
 
     members = _read_members(source, max_inflated)
@@ -168,7 +178,7 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
         raise BundleError("bundle has no manifest.json; open a bundle downloaded from lagspace")
     try:
         manifest = json.loads(members["manifest.json"])
-    except (json.JSONDecodeError, UnicodeDecodeError):
+    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError):  # RecursionError: nested too deep
         raise BundleError("bundle manifest is not valid JSON; the file is damaged") from None
     if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
         raise BundleError("bundle manifest does not describe a lagspace bundle")
@@ -181,7 +191,7 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
     required = set(DATA_MEMBERS) - set(OPTIONAL_MEMBERS)
     missing = sorted((required | set(listed)) - set(members))
     if missing:
-        raise BundleError(f"bundle lacks {', '.join(missing)}; the file is incomplete")
+        raise BundleError(f"bundle lacks {', '.join(map(repr, missing))}; the file is incomplete")
     for name in members:
         if name == "manifest.json":
             continue
@@ -191,8 +201,8 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
                               "the bundle was changed or damaged")
     try:
         settings = Settings.from_json(members["settings.json"].decode())
-    except (LagspaceError, UnicodeDecodeError) as exc:
-        raise BundleError(f"bundle settings cannot be read: {exc}") from None
+    except (LagspaceError, UnicodeDecodeError, RecursionError) as exc:
+        raise BundleError(f"bundle settings cannot be read: {' '.join(str(exc).split())}") from None
     recording = _open_netcdf(members["recording.nc"], "recording.nc")
     diagnostics = _open_netcdf(members["diagnostics.nc"], "diagnostics.nc")
     results = _open_netcdf(members["results.nc"], "results.nc") if "results.nc" in members else None
@@ -200,13 +210,24 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
         prepared = prepare(recording, settings)
         summary = summarise(prepared, diagnostics, results, settings)
     except (LagspaceError, KeyError, TypeError, ValueError) as exc:
-        raise BundleError(f"bundle contents are inconsistent ({exc}); the file is damaged") from None
+        raise BundleError(f"bundle contents are inconsistent ({_brief(exc)}); the file is damaged") from None
+    from .analysis import Analysis  # the whole chain: imported only once the archive is found sound
+
     return Analysis(recording, settings, prepared, diagnostics, results, summary)
 
 
 def _open_netcdf(data: bytes, name: str) -> xr.Dataset:
+    import h5py
+
     try:
-        with xr.open_dataset(io.BytesIO(data), engine="h5netcdf") as ds:
-            return ds.load()
+        # h5py first: it sizes the variables before anything is read (compressed data can inflate
+        # far beyond the member), and it refuses damaged files without the noise h5netcdf leaves on stderr
+        with h5py.File(io.BytesIO(data), "r") as f:
+            values = sum(v.size for v in f.values() if isinstance(v, h5py.Dataset))
+        if values <= MAX_VALUES:
+            with xr.open_dataset(io.BytesIO(data), engine="h5netcdf") as ds:
+                return ds.load()
     except Exception as exc:  # h5py raises many types for damaged files
         raise BundleError(f"bundle member {name} is not readable NetCDF ({type(exc).__name__}); the file is damaged") from None
+    raise BundleError(f"bundle member {name} holds {values} numbers, more than the limit of {MAX_VALUES} "
+                      "(a lagspace bundle holds far fewer): open a bundle as lagspace wrote it")

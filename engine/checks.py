@@ -27,6 +27,8 @@ from .errors import RecordingError
 from .recording import signal, time_unit, with_json_attr
 
 SEVERITIES = ("refuse", "warn", "note")
+LARGEST_VALUE = 1e100  # sums of N squared distances stay finite in float64
+SMALLEST_SPREAD = 1e-100  # squared distances stay normal floats
 
 
 def true_runs(mask) -> np.ndarray:
@@ -99,6 +101,7 @@ def check_recording(
             "check that the right channel was chosen and the sensor was connected", value=float(finite[0]),
         ))
     elif finite.size > 1:
+        findings += _magnitude(finite)
         findings += _quantisation(finite, quantisation_levels)
         findings += _clipping(x, clip_run)
     findings += _sampling(t, gap_factor, jitter_tolerance)
@@ -151,6 +154,22 @@ def _not_finite(x):
         f"{int(bad.sum())} samples are missing or infinite, at {compact_positions(runs)}",
         fix, nan=int(np.isnan(x).sum()), infinite=int(np.isinf(x).sum()),
         runs=runs[:50].tolist(), run_count=len(runs), longest_run=int(lengths.max()), at_edge=edge,
+    )]
+
+
+def _magnitude(finite):
+    """Squared distances between delay vectors must neither overflow nor underflow in float64."""
+    with np.errstate(over="ignore"):
+        largest, spread = float(np.max(np.abs(finite))), float(np.max(finite) - np.min(finite))
+    if largest <= LARGEST_VALUE and spread >= SMALLEST_SPREAD:
+        return []
+    what = (f"samples reach {largest:g}, beyond {LARGEST_VALUE:g}, where squared distances overflow"
+            if largest > LARGEST_VALUE else
+            f"samples spread over only {spread:g}, below {SMALLEST_SPREAD:g}, where squared distances underflow")
+    return [_finding(
+        "magnitude", "refuse", what,
+        f"rescale the values (e.g. give them in other units) so that they lie within +-{LARGEST_VALUE:g} "
+        f"and spread over more than {SMALLEST_SPREAD:g}", largest=largest, spread=spread,
     )]
 
 

@@ -124,15 +124,20 @@ def main(argv=None) -> int:
         handler = {"serve": _serve, "analyze": _analyze, "batch": _batch}[args.command]
         return handler(args)
     except _UsageError as exc:
-        print(f"error: {exc}; see `lagspace {_command(argv)}--help`", file=sys.stderr)
+        print(f"error: {_one_line(exc)}; see `lagspace {_command(argv)}--help`", file=sys.stderr)
     except LagspaceError as exc:
-        print(f"error: {exc}", file=sys.stderr)
+        print(f"error: {_one_line(exc)}", file=sys.stderr)
     except (OSError, MemoryError) as exc:
-        print(f"error: {type(exc).__name__}: {exc}", file=sys.stderr)
+        print(f"error: {type(exc).__name__}: {_one_line(exc)}", file=sys.stderr)
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
     return 2
+
+
+def _one_line(exc: BaseException) -> str:
+    """The message on one line, whatever line breaks a file name or header smuggled into it."""
+    return " ".join(str(exc).split())
 
 
 def _command(argv) -> str:

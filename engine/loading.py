@@ -20,6 +20,8 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import itertools
+import math
 import os
 import re
 import warnings
@@ -28,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 import xarray as xr
+from numpy.lib import format as npy_format
 from pandas.tseries.api import guess_datetime_format
 
 from .checks import attach_checks
@@ -55,6 +58,8 @@ _TIME_NAMES = {"time", "t", "times", "timestamp", "timestamps", "datetime", "dat
 _INDEX_NAMES = {"sample", "samples", "index", "idx", "n", "i", "sample_number", "step"}
 _DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
 _WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\]\)]*[\]\)])?|[\[\(][^\]\)]*[\]\)]")
+MAX_LINE = 100_000  # characters in one line of a text file
+MAX_COLUMNS = 1000  # columns of a text file
 
 
 @dataclass
@@ -106,7 +111,9 @@ def load_recording(
     time_column : name or 0-based file column index of the time column (text
         and ``.npy``); by default a column named like time, a column of dates,
         or a strictly increasing first column of two or more.
-    max_bytes, max_samples : limits beyond which the file is refused.
+    max_bytes, max_samples : limits beyond which the file is refused (a NetCDF4 file is refused
+        before reading when a 1-D variable holds more than max_samples, or all of them more
+        than 5 * max_samples: compressed variables can inflate far beyond the file's size).
 
     Returns
     -------
@@ -137,7 +144,8 @@ def load_recording(
     return attach_checks(rec)
 
 
-def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000_000) -> dict:
+def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000_000,
+                    max_samples: int = 10_000_000) -> dict:
     """What a file offers, so that a UI can ask only the questions that matter.
 
     Returns ``{"format": str, "variables": [names], "time_columns": [names],
@@ -145,7 +153,7 @@ def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000
     channel could be meant and ``load_recording`` needs ``variable``.
     """
     data, base = _read_source(source, name, max_bytes)
-    contents = _parse(data, base, None, None)
+    contents = _parse(data, base, None, max_samples)
     return {
         "format": contents.format,
         "variables": [s.name for _, s in contents.series],
@@ -170,7 +178,8 @@ def _check_interval(value):
 
 
 def _base_name(text) -> str:
-    return re.split(r"[\\/]", str(text))[-1]
+    """The file name without folders, with unprintable characters (line breaks...) as "?"."""
+    return "".join(ch if ch.isprintable() else "?" for ch in re.split(r"[\\/]", str(text))[-1])
 
 
 def _read_source(source, name, max_bytes) -> tuple[bytes, str]:
@@ -218,12 +227,15 @@ def _magic(data: bytes) -> str | None:
 def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
     ext = os.path.splitext(base)[1].lower()
     kind = _magic(data)
+    if data[:4] in (b"PK\x03\x04", b"PK\x05\x06"):
+        raise RecordingError(f"{base} is a zip archive, not a recording, and not a readable lagspace bundle: "
+                             "unzip it and give the recording inside, or give a bundle that lagspace wrote")
     if data[:4] == b"CDF\x05":
         raise RecordingError(f"{base} is 64-bit-data NetCDF (CDF-5), which cannot be read: save it as NetCDF4 or NetCDF3")
     if kind in ("scipy", "h5netcdf", "wav") and time_column is not None:
         raise RecordingError(f"time_column applies to text and .npy files; {base} carries its own time: leave time_column out")
     if kind in ("scipy", "h5netcdf"):
-        return _read_netcdf(data, base, kind)
+        return _read_netcdf(data, base, kind, max_samples)
     if kind == "npy":
         return _read_npy(data, base, time_column)
     if kind == "wav":
@@ -355,17 +367,25 @@ def _is_header(line: str, below: str | None, sep, decimal) -> bool:
 
 def _read_text(text: str, base: str, time_column, max_samples) -> _Contents:
     text = re.sub(r"(?m)^[ \t]*[#%].*(\n|$)", "", text.replace("\r\n", "\n").replace("\r", "\n"))
-    raw = text[:200_000].split("\n")[:200]
+    raw = [ln.rstrip("\n") for ln in itertools.islice(io.StringIO(text), 200)]
     content = [i for i, ln in enumerate(raw) if ln.strip()]
     head = [raw[i].strip() for i in content[:60]]
     if not head:
         raise RecordingError(f"{base} has only comments or blank lines: give one sample per line")
+    longest = max(len(ln) for ln in head)
+    if longest > MAX_LINE:
+        raise RecordingError(f"{base} has a line of {longest} characters, more than the limit of {MAX_LINE}: "
+                             f"give one sample per line, in at most {MAX_COLUMNS} columns")
     if max_samples is not None and text.count("\n") > max_samples + 2:
         raise RecordingError(
             f"{base} has {text.count(chr(10))} rows, more than the limit of {max_samples} samples: "
             "crop or decimate the file, or raise max_samples"
         )
     sep, decimal = _sniff(head)
+    widest = max(len(_fields(ln, sep)) for ln in head)
+    if widest > MAX_COLUMNS:
+        raise RecordingError(f"{base} has {widest} columns, more than the limit of {MAX_COLUMNS}: "
+                             "save the channel you want (and its time) in a file of its own")
     below = head[1] if len(head) > 1 else None
     if _is_header(head[0], below, sep, decimal):
         n_header = 1
@@ -414,17 +434,9 @@ def _column_values(col: pd.Series, label: str, base: str):
     if not bad.any():
         return "number", numbers.to_numpy(dtype=float)
     if present.sum() and all(_DATE_RE.fullmatch(str(v).strip()) for v in col[present].iloc[:20]):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            stamps = pd.to_datetime(col, errors="coerce", format="ISO8601")
-            if (stamps.isna().to_numpy() & present).any():
-                first = str(col[present].iloc[0]).strip()
-                dayfirst = bool(re.match(r"\d{1,2}\.\d{1,2}\.\d{2,4}", first))  # 31.01.2024 is day first
-                guess = guess_datetime_format(first, dayfirst=dayfirst) or "mixed"
-                stamps = pd.to_datetime(col, errors="coerce", format=guess, dayfirst=dayfirst)
-        if not (stamps.isna().to_numpy() & present).any():
-            seconds = (stamps - stamps.iloc[0]).dt.total_seconds()
-            return "date", seconds.to_numpy(dtype=float)
+        seconds = _seconds_since_first(col, present)
+        if seconds is not None:
+            return "date", seconds
     if bad.mean() < 0.5:
         row = int(np.flatnonzero(bad)[0])
         raise RecordingError(
@@ -432,6 +444,24 @@ def _column_values(col: pd.Series, label: str, base: str):
             "fix that entry or leave it blank (blank entries are read as missing)"
         )
     return "text", None
+
+
+def _seconds_since_first(col: pd.Series, present: np.ndarray):
+    """Seconds since the first date of a column of dates, or None when some present entry is no date."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            stamps = pd.to_datetime(col, errors="coerce", format="ISO8601")
+            if (stamps.isna().to_numpy() & present).any():
+                first = str(col[present].iloc[0]).strip()
+                dayfirst = bool(re.match(r"\d{1,2}\.\d{1,2}\.\d{2,4}", first))  # 31.01.2024 is day first
+                guess = guess_datetime_format(first, dayfirst=dayfirst) or "mixed"
+                stamps = pd.to_datetime(col, errors="coerce", format=guess, dayfirst=dayfirst)
+        except (ValueError, TypeError, OverflowError):  # e.g. mixed time zones: not a usable time column
+            return None
+    if (stamps.isna().to_numpy() & present).any():
+        return None
+    return (stamps - stamps.iloc[0]).dt.total_seconds().to_numpy(dtype=float)
 
 
 def _is_time_name(header: str) -> bool:
@@ -481,7 +511,7 @@ def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Conte
         series.append((k, _Series(_safe_name(stem), values, units or "1", header or stem, time, time_unit)))
     if not series:
         raise RecordingError(
-            f"{base} holds only a time column ({chosen[1] or 'column_0'}){words}: add a column of measured values"
+            f"{base} holds only a time column ({chosen[1] or 'column_0'!r}){words}: add a column of measured values"
         )
     return _Contents(fmt, series, [c[1] or f"column_{c[0]}" for c in candidates])
 
@@ -505,10 +535,18 @@ def _safe_name(stem: str) -> str:
 # -- binary formats ------------------------------------------------------------------
 
 
-def _read_netcdf(data: bytes, base: str, engine: str) -> _Contents:
+def _read_netcdf(data: bytes, base: str, engine: str, max_samples: int) -> _Contents:
     label = "NetCDF3" if engine == "scipy" else "NetCDF4"
     try:
+        if engine == "h5netcdf":  # compressed variables can inflate far beyond the file: look before reading
+            import h5py
+
+            with h5py.File(io.BytesIO(data), "r") as f:
+                sizes = {k: v.shape[0] for k, v in f.items() if isinstance(v, h5py.Dataset) and len(v.shape or ()) == 1}
+            _check_netcdf_sizes(sizes, base, max_samples)
         ds = xr.open_dataset(io.BytesIO(data), engine=engine, decode_times=False)
+    except RecordingError:
+        raise
     except Exception as exc:  # the readers raise many types for damaged files
         raise RecordingError(f"{base} could not be read as {label} ({type(exc).__name__}): check the file is complete") from None
     with ds:
@@ -517,7 +555,7 @@ def _read_netcdf(data: bytes, base: str, engine: str) -> _Contents:
             if var.ndim == 1 and var.dtype.kind in "biuf" and " since " not in str(var.attrs.get("units", "")):
                 usable.append(str(name))
             else:
-                other.append(f"{name} {tuple(var.dims)}")
+                other.append(f"{str(name)!r} {tuple(var.dims)}")
         if not usable:
             raise RecordingError(
                 f"{base} has no 1-D numeric variable (found: {', '.join(other) or 'none'}): "
@@ -533,6 +571,19 @@ def _read_netcdf(data: bytes, base: str, engine: str) -> _Contents:
             )))
         times = sorted({str(ds[name].dims[0]) for name in usable if ds[name].dims[0] in ds.coords})
     return _Contents("netcdf", series, times)
+
+
+def _check_netcdf_sizes(sizes: dict, base: str, max_samples: int) -> None:
+    """Refuse NetCDF4 variables (and their coordinates) that would not fit the limits."""
+    if not sizes:
+        return
+    name, largest = max(sizes.items(), key=lambda item: item[1])
+    if largest > max_samples:
+        raise RecordingError(f"{base}: variable {name!r} holds {largest} samples, more than the limit of "
+                             f"{max_samples}: crop or decimate it, or raise max_samples")
+    if sum(sizes.values()) > 5 * max_samples:
+        raise RecordingError(f"{base}: its {len(sizes)} 1-D variables hold {sum(sizes.values())} samples in all, "
+                             f"more than {5 * max_samples}: save the channel you want in a file of its own")
 
 
 def _netcdf_time(ds, dim, base):
@@ -553,18 +604,35 @@ def _netcdf_time(ds, dim, base):
     return values * factor, label
 
 
+def _check_npy_header(data: bytes, base: str) -> None:
+    """Refuse Python objects, and a header that promises more data than the file holds
+    (np.load would allocate all of it before reading)."""
+    fh = io.BytesIO(data)
+    try:
+        version = npy_format.read_magic(fh)
+        read = npy_format.read_array_header_1_0 if version == (1, 0) else npy_format.read_array_header_2_0
+        shape, _, dtype = read(fh)
+    except Exception as exc:  # numpy's header parser raises ValueError, SyntaxError, struct.error, ...
+        raise RecordingError(f"{base} has a damaged .npy header ({' '.join(str(exc).split())[:200]}): "
+                             "save the array again with np.save") from None
+    if dtype.hasobject:
+        raise RecordingError(
+            f"{base} holds Python objects, and uploaded files are never unpickled: "
+            "save a plain numeric array, e.g. np.save(path, values.astype(float))"
+        )
+    promised, held = math.prod(shape) * dtype.itemsize, len(data) - fh.tell()
+    if promised > held:
+        raise RecordingError(f"{base} promises an array of shape {shape} ({promised} bytes) but holds only "
+                             f"{held} bytes of data: the file is truncated, save it again")
+
+
 def _read_npy(data: bytes, base: str, time_column) -> _Contents:
+    _check_npy_header(data, base)
     try:
         arr = np.load(io.BytesIO(data), allow_pickle=False)
-    except ValueError as exc:
-        if "pickle" in str(exc).lower() or "object" in str(exc).lower():
-            raise RecordingError(
-                f"{base} holds Python objects, and uploaded files are never unpickled: "
-                "save a plain numeric array, e.g. np.save(path, values.astype(float))"
-            ) from None
-        raise RecordingError(f"{base} could not be read as .npy ({' '.join(str(exc).split())})") from None
-    except (OSError, EOFError) as exc:
-        raise RecordingError(f"{base} could not be read as .npy ({type(exc).__name__}): check the file is complete") from None
+    except (ValueError, OSError, EOFError) as exc:
+        raise RecordingError(f"{base} could not be read as .npy ({' '.join(str(exc).split())[:200]}): "
+                             "save the array again with np.save") from None
     if arr.dtype.names:
         cols = [(k, name, arr[name]) for k, name in enumerate(arr.dtype.names)]
     elif arr.ndim == 1:
@@ -588,8 +656,9 @@ def _read_wav(data: bytes, base: str) -> _Contents:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             rate, arr = wavfile.read(io.BytesIO(data))
-    except (ValueError, EOFError, OSError) as exc:
-        raise RecordingError(f"{base} could not be read as .wav ({' '.join(str(exc).split())})") from None
+    except Exception as exc:  # scipy's reader raises many types (struct.error, ValueError, ...) for damaged files
+        raise RecordingError(f"{base} could not be read as .wav ({' '.join(str(exc).split())[:200]}): "
+                             "check the file is complete, or export it again as PCM .wav") from None
     if rate <= 0 or arr.size == 0:
         raise RecordingError(f"{base} has no samples or a sample rate of {rate}: give a .wav with audio data")
     arr = arr.reshape(arr.shape[0], -1)
