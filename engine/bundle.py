@@ -17,6 +17,7 @@ import io
 import json
 import os
 import platform
+import re
 import tempfile
 import zipfile
 from pathlib import Path
@@ -35,6 +36,7 @@ OPTIONAL_MEMBERS = ("results.nc",)
 MAX_INFLATED = 2_000_000_000  # bytes, all members together
 MAX_RATIO = 200  # inflated / compressed, per member
 MAX_VALUES = 50_000_000  # numbers in one NetCDF member, all variables together
+AGAIN = "open the bundle as lagspace wrote it (download or write it again)"
 
 
 def _software() -> dict:
@@ -126,7 +128,8 @@ def is_bundle(path) -> bool:
 
 def _brief(exc: Exception) -> str:
     """An exception as one short line: its type and first words."""
-    return f"{type(exc).__name__}: {' '.join(str(exc).split())[:120]}"
+    text = re.sub(r"<ZipInfo[^>]*>", "member", " ".join(str(exc).split()))
+    return f"{type(exc).__name__}: {text[:120]}"
 
 
 def _read_members(source, max_inflated: int) -> dict:
@@ -139,8 +142,8 @@ def _read_members(source, max_inflated: int) -> dict:
         allowed = set(DATA_MEMBERS) | {"manifest.json"}
         for info in infos:
             if info.filename not in allowed:
-                raise BundleError(f"bundle member {info.filename!r} is not one lagspace writes; "
-                                  f"a bundle holds only {', '.join(sorted(allowed))}")
+                raise BundleError(f"bundle member {info.filename!r} is not one lagspace writes (a bundle holds "
+                                  f"only {', '.join(sorted(allowed))}): {AGAIN}")
         if len({i.filename for i in infos}) != len(infos):
             raise BundleError("bundle lists a member twice; open a bundle downloaded from lagspace")
         total = sum(i.file_size for i in infos)
@@ -150,18 +153,16 @@ def _read_members(source, max_inflated: int) -> dict:
         for info in infos:
             if info.file_size > MAX_RATIO * max(info.compress_size, 1) + 1_000_000:
                 raise BundleError(f"bundle member {info.filename!r} inflates {info.file_size / max(info.compress_size, 1):.0f}"
-                                  " times its size, which no lagspace bundle does; it may be a zip bomb")
+                                  f" times its size, which no lagspace bundle does; it may be a zip bomb: {AGAIN}")
         out = {}
         for info in infos:
             try:
                 with zf.open(info) as fh:
                     data = fh.read(info.file_size + 1)
             except Exception as exc:  # BadZipFile, zlib.error, NotImplementedError (method), RuntimeError (encrypted)...
-                raise BundleError(f"bundle member {info.filename!r} cannot be read ({_brief(exc)}); "
-                                  "the file is damaged: open a bundle as lagspace wrote it") from None
+                raise BundleError(f"bundle member {info.filename!r} cannot be read ({_brief(exc)}): {AGAIN}") from None
             if len(data) != info.file_size:
-                raise BundleError(f"bundle member {info.filename!r} does not have the size its header says; "
-                                  "the file is damaged: open a bundle as lagspace wrote it")
+                raise BundleError(f"bundle member {info.filename!r} does not have the size its header says: {AGAIN}")
             out[info.filename] = data
     return out
 
@@ -179,30 +180,30 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
     try:
         manifest = json.loads(members["manifest.json"])
     except (json.JSONDecodeError, UnicodeDecodeError, RecursionError):  # RecursionError: nested too deep
-        raise BundleError("bundle manifest is not valid JSON; the file is damaged") from None
+        raise BundleError(f"bundle manifest is not valid JSON: {AGAIN}") from None
     if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
-        raise BundleError("bundle manifest does not describe a lagspace bundle")
+        raise BundleError(f"bundle manifest does not describe a lagspace bundle: {AGAIN}")
     if manifest.get("format_version") != FORMAT_VERSION:
         raise BundleError(f"bundle format version {manifest.get('format_version')!r} is not supported "
-                          f"(this lagspace reads version {FORMAT_VERSION})")
+                          f"(this lagspace reads version {FORMAT_VERSION}): open it with the lagspace that wrote it")
     listed = manifest.get("members")
     if not isinstance(listed, dict):
-        raise BundleError("bundle manifest lists no members; the file is damaged")
+        raise BundleError(f"bundle manifest lists no members: {AGAIN}")
     required = set(DATA_MEMBERS) - set(OPTIONAL_MEMBERS)
     missing = sorted((required | set(listed)) - set(members))
     if missing:
-        raise BundleError(f"bundle lacks {', '.join(map(repr, missing))}; the file is incomplete")
+        raise BundleError(f"bundle lacks {', '.join(map(repr, missing))}: {AGAIN}")
     for name in members:
         if name == "manifest.json":
             continue
         entry = listed.get(name)
         if not isinstance(entry, dict) or entry.get("sha256") != _sha256(members[name]):
-            raise BundleError(f"bundle member {name} does not match its SHA-256 in the manifest; "
-                              "the bundle was changed or damaged")
+            raise BundleError(f"bundle member {name} does not match its SHA-256 in the manifest, so the bundle "
+                              f"was changed or damaged: {AGAIN}")
     try:
         settings = Settings.from_json(members["settings.json"].decode())
     except (LagspaceError, UnicodeDecodeError, RecursionError) as exc:
-        raise BundleError(f"bundle settings cannot be read: {' '.join(str(exc).split())}") from None
+        raise BundleError(f"bundle settings cannot be read ({' '.join(str(exc).split())[:300]}): {AGAIN}") from None
     recording = _open_netcdf(members["recording.nc"], "recording.nc")
     diagnostics = _open_netcdf(members["diagnostics.nc"], "diagnostics.nc")
     results = _open_netcdf(members["results.nc"], "results.nc") if "results.nc" in members else None
@@ -210,7 +211,7 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
         prepared = prepare(recording, settings)
         summary = summarise(prepared, diagnostics, results, settings)
     except (LagspaceError, KeyError, TypeError, ValueError) as exc:
-        raise BundleError(f"bundle contents are inconsistent ({_brief(exc)}); the file is damaged") from None
+        raise BundleError(f"bundle contents are inconsistent ({_brief(exc)}): {AGAIN}") from None
     from .analysis import Analysis  # the whole chain: imported only once the archive is found sound
 
     return Analysis(recording, settings, prepared, diagnostics, results, summary)
@@ -228,6 +229,6 @@ def _open_netcdf(data: bytes, name: str) -> xr.Dataset:
             with xr.open_dataset(io.BytesIO(data), engine="h5netcdf") as ds:
                 return ds.load()
     except Exception as exc:  # h5py raises many types for damaged files
-        raise BundleError(f"bundle member {name} is not readable NetCDF ({type(exc).__name__}); the file is damaged") from None
+        raise BundleError(f"bundle member {name} is not readable NetCDF ({type(exc).__name__}): {AGAIN}") from None
     raise BundleError(f"bundle member {name} holds {values} numbers, more than the limit of {MAX_VALUES} "
-                      "(a lagspace bundle holds far fewer): open a bundle as lagspace wrote it")
+                      f"(a lagspace bundle holds far fewer): {AGAIN}")
