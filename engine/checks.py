@@ -95,16 +95,17 @@ def check_recording(
     findings += _length(x.size, min_samples, few_samples)
     findings += _not_finite(x)
     finite = x[np.isfinite(x)]
-    if finite.size and np.ptp(finite) == 0:
-        findings.append(_finding(
-            "constant", "refuse", f"all {finite.size} finite samples equal {finite[0]:g}",
-            "check that the right channel was chosen and the sensor was connected", value=float(finite[0]),
-        ))
-    elif finite.size > 1:
-        findings += _magnitude(finite)
-        findings += _quantisation(finite, quantisation_levels)
-        findings += _clipping(x, clip_run)
-    findings += _sampling(t, gap_factor, jitter_tolerance)
+    with np.errstate(over="ignore", invalid="ignore"):  # differences of values near 1e308 overflow: found below
+        if finite.size and finite.min() == finite.max():
+            findings.append(_finding(
+                "constant", "refuse", f"all {finite.size} finite samples equal {finite[0]:g}",
+                "check that the right channel was chosen and the sensor was connected", value=float(finite[0]),
+            ))
+        elif finite.size > 1:
+            findings += _magnitude(finite)
+            findings += _quantisation(finite, quantisation_levels)
+            findings += _clipping(x, clip_run)
+        findings += _sampling(t, gap_factor, jitter_tolerance)
     if time_unit(rec) == "unknown":
         findings.append(_finding(
             "time_unit_unknown", "note", "the file does not say in what unit time is given",
@@ -159,8 +160,7 @@ def _not_finite(x):
 
 def _magnitude(finite):
     """Squared distances between delay vectors must neither overflow nor underflow in float64."""
-    with np.errstate(over="ignore"):
-        largest, spread = float(np.max(np.abs(finite))), float(np.max(finite) - np.min(finite))
+    largest, spread = float(np.max(np.abs(finite))), float(np.max(finite) - np.min(finite))
     if largest <= LARGEST_VALUE and spread >= SMALLEST_SPREAD:
         return []
     what = (f"samples reach {largest:g}, beyond {LARGEST_VALUE:g}, where squared distances overflow"
@@ -196,6 +196,13 @@ def _sampling(t, gap_factor, tolerance):
             backwards=back[:50].tolist(), repeated=same[:50].tolist(),
         )]
     step = float(np.median(d))
+    if not SMALLEST_SPREAD <= step <= LARGEST_VALUE:
+        return [_finding(
+            "time_step_magnitude", "refuse",
+            f"the time step is {step:g}, outside {SMALLEST_SPREAD:g} to {LARGEST_VALUE:g}, where rates per unit "
+            "time overflow or underflow", "give the sampling interval in seconds (or time in a fitting unit)",
+            median_interval=step,
+        )]
     gaps = np.flatnonzero(d > gap_factor * step)
     regular = np.delete(d, gaps)
     deviation = np.abs(regular - step) / step

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import warnings
 from pathlib import Path
 
 from .errors import LagspaceError
@@ -121,8 +122,9 @@ def main(argv=None) -> int:
     parser = _parser()
     try:
         args = parser.parse_args(argv)
-        handler = {"serve": _serve, "analyze": _analyze, "batch": _batch}[args.command]
-        return handler(args)
+        if args.command == "serve":
+            return _serve(args)
+        return _warnings_after({"analyze": _analyze, "batch": _batch}[args.command], args)
     except _UsageError as exc:
         print(f"error: {_one_line(exc)}; see `lagspace {_command(argv)}--help`", file=sys.stderr)
     except LagspaceError as exc:
@@ -135,7 +137,18 @@ def main(argv=None) -> int:
     return 2
 
 
-def _one_line(exc: BaseException) -> str:
+def _warnings_after(handler, args) -> int:
+    """Run ``handler``; warnings raised on the way are printed after a success, one line each,
+    and dropped after an error, whose single ``error:`` line is all that bad input gets."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        code = handler(args)
+    for text in dict.fromkeys(_one_line(f"{w.category.__name__}: {w.message}") for w in caught):
+        print(f"warning: {text}", file=sys.stderr)
+    return code
+
+
+def _one_line(exc) -> str:
     """The message on one line, whatever line breaks a file name or header smuggled into it."""
     return " ".join(str(exc).split())
 

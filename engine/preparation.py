@@ -113,17 +113,20 @@ def resample(rec: xr.Dataset, interval: float | None = None) -> xr.Dataset:
     A sample next to a missing one stays missing (NaN spreads to its neighbours).
     """
     x, t = _series(rec)
-    if t.size < 2 or not np.all(np.diff(t) > 0):
-        raise RecordingError("resampling needs two or more samples with time increasing from each to the next: "
-                             "sort the rows by time and remove repeats")
-    dt = float(np.median(np.diff(t))) if interval is None else _positive("interval", interval)
-    count = int(np.floor((t[-1] - t[0]) / dt * (1 + 1e-12))) + 1
-    if count > MAX_GRID:
-        raise RecordingError(f"resampling at {dt:g} would make {count} samples (limit {MAX_GRID}): choose a longer interval")
+    with np.errstate(over="ignore", invalid="ignore"):  # times near 1e308 overflow: refused below
+        steps = np.diff(t)
+        if t.size < 2 or not np.all(steps > 0):
+            raise RecordingError("resampling needs two or more samples with time increasing from each to the next: "
+                                 "sort the rows by time and remove repeats")
+        dt = float(np.median(steps)) if interval is None else _positive("interval", interval)
+        span = float((t[-1] - t[0]) / dt)
+    if not span < MAX_GRID:
+        raise RecordingError(f"resampling at {dt:g} would make {span + 1:g} samples (limit {MAX_GRID}): "
+                             "choose a longer interval")
+    count = int(np.floor(span * (1 + 1e-12))) + 1
     grid = t[0] + dt * np.arange(count)
     out = _rebuild(rec, np.interp(grid, t, x), grid)
     out.attrs["sampling_interval"] = dt
-    steps = np.diff(t)
     return append_step(out, {
         "step": "resample", "interval": dt, "interval_from": "median step" if interval is None else "given",
         "method": "linear interpolation", "samples_before": int(t.size), "samples_after": count,

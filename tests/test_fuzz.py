@@ -239,6 +239,47 @@ def test_mutated_valid_files(name):
           lambda data: load_and_prepare(data, name), 150)
 
 
+@st.composite
+def recordings_and_settings(draw):
+    """A Recording with odd values or times (NaN runs, gaps, jitter, huge or tiny steps) and odd preparation."""
+    rng = np.random.default_rng(draw(st.integers(0, 2**32 - 1)))
+    n = draw(st.sampled_from([150, 300, 2500, 2500, 2500]))
+    x = systems.henon(n) * draw(st.sampled_from([1.0, 1.0, 1e-120, 1e120]))
+    for _ in range(draw(st.sampled_from([0, 0, 0, 1, 3]))):  # runs of missing samples, some at the edges
+        at = int(rng.integers(0, n))
+        x[at:at + draw(st.integers(1, 6))] = draw(st.sampled_from([np.nan, np.inf]))
+    t = np.arange(n) * draw(st.sampled_from([1.0, 0.01, 0.01, 1e-9, 1e-200, 1e200]))
+    kind = draw(st.sampled_from(["even", "even", "even", "jitter", "gap", "wide"]))
+    if kind == "jitter":
+        t = t + rng.uniform(-0.3, 0.3, n) * (t[1] - t[0])
+    elif kind == "gap":
+        t[n // 2:] += 10 * (t[1] - t[0])
+    elif kind == "wide":
+        t = np.linspace(-1.0, 1.0, n) * 1.7e308  # its span overflows
+    rec = make_recording(x, t, name="x", time_unit="s")
+    options = {"sampling_interval": draw(st.sampled_from([None, None, None, 0.01, 1e-320, 1e300])),
+               "fill_gaps": draw(st.booleans()), "max_gap": draw(st.integers(1, 5)), "resample": draw(st.booleans()),
+               "crop_start": draw(st.sampled_from([None, None, None, float(t[n // 10]), -1.0, 1e308])),
+               "crop_stop": draw(st.sampled_from([None, None, None, float(t[-1]), float(t[n // 10 + 10])])),
+               "detrend": draw(st.sampled_from(["none", "mean", "linear"])), "standardise": draw(st.booleans())}
+    return rec, options
+
+
+def prepare_property(case):
+    rec, options = case
+    try:
+        _valid_recording(prepare(rec, Settings(**options)))
+    except LagspaceError as exc:
+        _one_line(exc)
+        return False
+    return True
+
+
+def test_prepare_with_odd_times_and_settings():
+    valid = _fuzz("prepare(odd recordings, odd settings)", recordings_and_settings(), prepare_property, 300)
+    assert valid > 0
+
+
 # -- the bundle reader -------------------------------------------------------------------
 
 
