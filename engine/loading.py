@@ -272,7 +272,7 @@ def _decode(data: bytes) -> str | None:
 def _choose(contents: _Contents, variable) -> _Series:
     series = contents.series
     names = {s.name for _, s in series}
-    listing = ", ".join(f"{i}: {s.name!r}" for i, s in series)
+    listing = _listing([f"{i}: {s.name!r}" for i, s in series])
     if variable is None:
         if len(series) > 1:
             raise RecordingError(f"the file has {len(series)} channels; choose one with variable (name or index): {listing}")
@@ -287,6 +287,12 @@ def _choose(contents: _Contents, variable) -> _Series:
             if wanted in (s.name, s.long_name) or wanted == str(i) and wanted not in names:
                 return s
     raise RecordingError(f"no channel {variable!r} in the file; choose one of {listing}")
+
+
+def _listing(items: list[str], limit: int = 20) -> str:
+    """``"a, b, c and 7 more"``: a list short enough for a one-line message."""
+    more = f" and {len(items) - limit} more" if len(items) > limit else ""
+    return ", ".join(items[:limit]) + more
 
 
 def _time_factor(units: str):
@@ -487,7 +493,7 @@ def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Conte
     else:
         chosen = next((c for c in columns if _matches(c, time_column)), None)
         if chosen is None:
-            listing = ", ".join(f"{c[0]}: {c[1] or 'column_%d' % c[0]!r}" for c in columns)
+            listing = _listing([f"{c[0]}: {c[1] or 'column_%d' % c[0]!r}" for c in columns])
             raise RecordingError(f"no numeric column {time_column!r} to use as time in {base}; columns are {listing}")
     time, time_unit = None, "sample"
     if chosen is not None:
@@ -558,7 +564,7 @@ def _read_netcdf(data: bytes, base: str, engine: str, max_samples: int) -> _Cont
                 other.append(f"{str(name)!r} {tuple(var.dims)}")
         if not usable:
             raise RecordingError(
-                f"{base} has no 1-D numeric variable (found: {', '.join(other) or 'none'}): "
+                f"{base} has no 1-D numeric variable (found: {_listing(other) or 'none'}): "
                 "save one channel as a 1-D variable along time"
             )
         series = []
