@@ -81,7 +81,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     d2 = correlation.correlation_dimension(cs, m)
     estimates["correlation_dimension"] = d2
     estimates["correlation_dimension_ml"] = correlation.takens_estimator(cs, m, r_max=_upper(d2))
-    estimates["correlation_entropy"] = correlation.correlation_entropy(cs, d2.get("scaling_range"), dt)
+    estimates["correlation_entropy"] = correlation.correlation_entropy(cs, d2.get("scaling_range"), dt, embedding_dimension=m)
     parts.append(cs)
 
     stage("box counting", 0.35)
@@ -176,7 +176,7 @@ def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> A
         d2 = correlation.correlation_dimension(res, m, scaling_range=tuple(scaling_range))
         res.attrs["correlation_dimension"] = json.dumps(d2)
         res.attrs["correlation_dimension_ml"] = json.dumps(correlation.takens_estimator(res, m, r_max=_upper(d2)))
-        res.attrs["correlation_entropy"] = json.dumps(correlation.correlation_entropy(res, d2.get("scaling_range"), dt))
+        res.attrs["correlation_entropy"] = json.dumps(correlation.correlation_entropy(res, d2.get("scaling_range"), dt, embedding_dimension=m))
     if divergence_range is not None:
         fit = lyapunov.fit_divergence(res, m, tuple(divergence_range), dt, unit)
         res.attrs["largest_lyapunov_exponent"] = json.dumps(fit)
