@@ -33,7 +33,7 @@ import xarray as xr
 from numpy.lib import format as npy_format
 from pandas.tseries.api import guess_datetime_format
 
-from .checks import attach_checks
+from .checks import attach_checks, compact_positions, true_runs
 from .errors import RecordingError
 from .recording import make_recording
 
@@ -57,7 +57,7 @@ _TIME_NAMES = {"time", "t", "times", "timestamp", "timestamps", "datetime", "dat
                "secs", "sec", "elapsed", "elapsed_time", "clock"}
 _INDEX_NAMES = {"sample", "samples", "index", "idx", "n", "i", "sample_number", "step"}
 _DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
-_WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\]\)]*[\]\)])?|[\[\(][^\]\)]*[\]\)]")
+_WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\[\(\]\)]*[\]\)])?|[\[\(][^\[\(\]\)]*[\]\)]")  # linear: no nesting
 MAX_LINE = 100_000  # characters in one line of a text file
 MAX_COLUMNS = 1000  # columns of a text file
 
@@ -134,6 +134,11 @@ def load_recording(
             "crop or decimate the file, or raise max_samples"
         )
     time, time_unit = (None, "s") if interval is not None else (s.time, s.time_unit)
+    if time is not None and not np.isfinite(time).all():
+        raise RecordingError(
+            f"{base}: time is missing or infinite at samples {compact_positions(true_runs(~np.isfinite(time)))}: "
+            "fill in those times or remove those rows, or give sampling_interval to replace the file's time"
+        )
     interval = interval if interval is not None else s.interval
     rec = make_recording(
         s.values, time, name=s.name, units=s.units or "1", time_unit=time_unit, source=base,
@@ -272,7 +277,7 @@ def _decode(data: bytes) -> str | None:
 def _choose(contents: _Contents, variable) -> _Series:
     series = contents.series
     names = {s.name for _, s in series}
-    listing = _listing([f"{i}: {s.name!r}" for i, s in series])
+    listing = _listing([f"{i}: {_quoted(s.name)}" for i, s in series])
     if variable is None:
         if len(series) > 1:
             raise RecordingError(f"the file has {len(series)} channels; choose one with variable (name or index): {listing}")
@@ -287,6 +292,16 @@ def _choose(contents: _Contents, variable) -> _Series:
             if wanted in (s.name, s.long_name) or wanted == str(i) and wanted not in names:
                 return s
     raise RecordingError(f"no channel {variable!r} in the file; choose one of {listing}")
+
+
+def _quoted(text: str, limit: int = 60) -> str:
+    """``repr(text)``, cut to about ``limit`` characters: file contents quoted in a one-line message."""
+    return repr(text if len(text) <= limit else text[:limit] + "...")
+
+
+def _is_date(text: str) -> bool:
+    """Looks like a date or time of day. Long fields are not dates (and would make the regex quadratic)."""
+    return len(text) <= 64 and _DATE_RE.fullmatch(text) is not None
 
 
 def _listing(items: list[str], limit: int = 20) -> str:
@@ -311,9 +326,11 @@ def _time_factor(units: str):
 def _split_units(field: str) -> tuple[str, str]:
     """``"strain [ue]"`` -> ("strain", "ue"); ``"time_ms"`` -> ("time", "ms")."""
     field = field.strip().strip('"').strip()
-    m = re.fullmatch(r"(.*?)\s*[\[\(]\s*([^\]\)]*?)\s*[\]\)]", field)
-    if m and m.group(1):
-        return m.group(1), m.group(2)
+    if field[-1:] in ("]", ")"):  # "name [unit]": the first bracket opened after any other bracket closed
+        after = max(field.rfind("]", 0, len(field) - 1), field.rfind(")", 0, len(field) - 1)) + 1
+        opening = min((i for i in (field.find("[", after), field.find("(", after)) if i >= 0), default=-1)
+        if opening > 0:
+            return field[:opening].rstrip(), field[opening + 1:-1].strip()
     head, _, tail = field.rpartition("_")
     if head and tail in _SUFFIX_UNITS:
         return head, tail
@@ -328,7 +345,7 @@ def _field_kind(field: str, decimal: str) -> str:
         float(field.replace(decimal, ".") if decimal == "," else field)
         return "number"
     except ValueError:
-        return "date" if _DATE_RE.fullmatch(field) else "text"
+        return "date" if _is_date(field) else "text"
 
 
 def _fields(line: str, sep: str | None) -> list[str]:
@@ -424,7 +441,7 @@ def _read_text(text: str, base: str, time_column, max_samples) -> _Contents:
             columns.append((k, header, kind, values))
         elif not words:
             example = str(frame[k].dropna().iloc[0]) if frame[k].notna().any() else ""
-            words = f" (column {header or f'column_{k}'!r} holds words such as {example!r})"
+            words = f" (column {_quoted(header or f'column_{k}')} holds words such as {_quoted(example)})"
     if not columns:
         raise RecordingError(f"{base} has no numeric column{words}: give a file of numbers, one sample per row")
     return _table(columns, "text", time_column, base, words)
@@ -439,14 +456,14 @@ def _column_values(col: pd.Series, label: str, base: str):
     bad = present & numbers.isna().to_numpy()
     if not bad.any():
         return "number", numbers.to_numpy(dtype=float)
-    if present.sum() and all(_DATE_RE.fullmatch(str(v).strip()) for v in col[present].iloc[:20]):
+    if present.sum() and all(_is_date(str(v).strip()) for v in col[present].iloc[:20]):
         seconds = _seconds_since_first(col, present)
         if seconds is not None:
             return "date", seconds
     if bad.mean() < 0.5:
         row = int(np.flatnonzero(bad)[0])
         raise RecordingError(
-            f"{base}: column {label!r} is numeric but data row {row + 1} holds {str(col.iloc[row])!r}: "
+            f"{base}: column {_quoted(label)} is numeric but data row {row + 1} holds {_quoted(str(col.iloc[row]))}: "
             "fix that entry or leave it blank (blank entries are read as missing)"
         )
     return "text", None
@@ -493,14 +510,11 @@ def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Conte
     else:
         chosen = next((c for c in columns if _matches(c, time_column)), None)
         if chosen is None:
-            listing = _listing([f"{c[0]}: {c[1] or 'column_%d' % c[0]!r}" for c in columns])
+            listing = _listing([f"{c[0]}: {_quoted(c[1] or 'column_%d' % c[0])}" for c in columns])
             raise RecordingError(f"no numeric column {time_column!r} to use as time in {base}; columns are {listing}")
     time, time_unit = None, "sample"
     if chosen is not None:
         time = chosen[3]
-        if np.isnan(time).any():
-            row = int(np.flatnonzero(np.isnan(time))[0])
-            raise RecordingError(f"{base}: the time column has no value at data row {row + 1}: fill it in or remove that row")
         stem, units = _split_units(chosen[1]) if chosen[1] else ("", "")
         if chosen[2] == "date":
             time_unit = "s"
@@ -517,7 +531,7 @@ def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Conte
         series.append((k, _Series(_safe_name(stem), values, units or "1", header or stem, time, time_unit)))
     if not series:
         raise RecordingError(
-            f"{base} holds only a time column ({chosen[1] or 'column_0'!r}){words}: add a column of measured values"
+            f"{base} holds only a time column ({_quoted(chosen[1] or 'column_0')}){words}: add a column of measured values"
         )
     return _Contents(fmt, series, [c[1] or f"column_{c[0]}" for c in candidates])
 
@@ -561,7 +575,7 @@ def _read_netcdf(data: bytes, base: str, engine: str, max_samples: int) -> _Cont
             if var.ndim == 1 and var.dtype.kind in "biuf" and " since " not in str(var.attrs.get("units", "")):
                 usable.append(str(name))
             else:
-                other.append(f"{str(name)!r} {tuple(var.dims)}")
+                other.append(f"{_quoted(str(name))} {tuple(var.dims)}")
         if not usable:
             raise RecordingError(
                 f"{base} has no 1-D numeric variable (found: {_listing(other) or 'none'}): "
@@ -585,7 +599,7 @@ def _check_netcdf_sizes(sizes: dict, base: str, max_samples: int) -> None:
         return
     name, largest = max(sizes.items(), key=lambda item: item[1])
     if largest > max_samples:
-        raise RecordingError(f"{base}: variable {name!r} holds {largest} samples, more than the limit of "
+        raise RecordingError(f"{base}: variable {_quoted(name)} holds {largest} samples, more than the limit of "
                              f"{max_samples}: crop or decimate it, or raise max_samples")
     if sum(sizes.values()) > 5 * max_samples:
         raise RecordingError(f"{base}: its {len(sizes)} 1-D variables hold {sum(sizes.values())} samples in all, "

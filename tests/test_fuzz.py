@@ -55,7 +55,7 @@ def _fuzz(name, strategy, check, max_examples):
     def case(value):
         nonlocal count, valid
         count += 1
-        with _alarm(CASE_SECONDS), warnings.catch_warnings():
+        with alarm(CASE_SECONDS), warnings.catch_warnings():
             warnings.simplefilter("ignore")  # warnings are not the property; the CLI tests check stderr
             valid += bool(check(value))
 
@@ -66,7 +66,8 @@ def _fuzz(name, strategy, check, max_examples):
 
 
 @contextlib.contextmanager
-def _alarm(seconds):
+def alarm(seconds):
+    """Raise TimeoutError in the main thread when the block runs longer than ``seconds``."""
     def hang(signum, frame):
         raise TimeoutError(f"one case ran longer than {seconds} s")
 
@@ -218,7 +219,8 @@ def text_tables(draw):
         lines.append(sep.join(cells))
     for _ in range(draw(st.sampled_from([0, 0, 0, 1, 3]))):  # junk: a ragged row, a word, a blank line, a comment
         junk = draw(st.sampled_from(["", "oops", "1" + sep + "2" + sep + "3" + sep + "4" + sep + "5",
-                                     "% note", sep * 3, "1e400", "-", "\x00", "\ufeff1"]))
+                                     "% note", sep * 3, "1e400", "-", "\x00", "\ufeff1"])
+                    | st.text(alphabet="()[]-1:. x", min_size=1, max_size=6).map(lambda s: s * 8000))  # long fields
         lines.insert(draw(st.integers(0, len(lines))), junk)
     newline = draw(st.sampled_from(["\n", "\r\n", "\r"]))
     encoding = draw(st.sampled_from(["utf-8", "utf-8", "utf-16", "cp1252"]))

@@ -29,6 +29,7 @@ import xarray as xr
 from scipy.io import wavfile
 
 import systems
+from test_fuzz import CASE_SECONDS, alarm
 from engine.bundle import read_bundle
 from engine.errors import BundleError, RecordingError
 from engine.loading import load_recording
@@ -147,6 +148,10 @@ RECORDINGS = {
     "5000 columns": (
         "many.csv", lambda tmp: (",".join(f"c{i}" for i in range(5000)) + "\n" + ",".join(["1"] * 5000) + "\n").encode(),
         ["5000 columns"]),
+    "date-like fields of 98k characters": ("slow.csv", lambda tmp: (b"1-" * 49_000 + b"x\n") * 20,
+                                           ["no numeric column", "..."]),
+    "header of 40k nested brackets": ("brackets.csv", lambda tmp: b"( " * 40_000 + b"\n" + _column(X[:150]),
+                                      ["only 150 samples"]),
     "line break in the file name": ("bad\nname.csv", lambda tmp: b"", ["empty"]),
 }
 
@@ -245,7 +250,7 @@ def test_recording_refused_by_engine(tmp_path, case):
     data = make(tmp_path)
     tracemalloc.start()
     try:
-        with pytest.raises(RecordingError) as err:
+        with pytest.raises(RecordingError) as err, alarm(CASE_SECONDS):
             prepare(load_recording(data, name=name), Settings())
         peak = tracemalloc.get_traced_memory()[1]
     finally:
@@ -276,7 +281,7 @@ def test_bundle_refused_by_engine(tmp_path, case):
     before = sorted(tmp_path.parent.iterdir())
     tracemalloc.start()
     try:
-        with pytest.raises(BundleError) as err:
+        with pytest.raises(BundleError) as err, alarm(CASE_SECONDS):
             read_bundle(data)
         peak = tracemalloc.get_traced_memory()[1]
     finally:
