@@ -18,8 +18,6 @@ Eckmann & Ruelle, Physica D 56 (1992) 185 (largest credible D2 ~ 2 log10 N).
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import xarray as xr
 
@@ -39,7 +37,8 @@ PLATEAU_TOLERANCE = 0.1
 PLATEAU_MIN_FACTOR = 2.0
 #: D2 "saturates" when it grows by less than this fraction over the dimensions looked at
 SATURATION_TOLERANCE = 0.1
-#: the largest radius is this fraction of the attractor extent (C is close to 1 above it)
+#: the largest radius, as a fraction of the extent: above it C(r) shows the attractor's size rather than
+#: its dimension, and leaving those pairs out lets the count stop early
 TOP_RADIUS_FRACTION = 0.25
 
 
@@ -87,7 +86,11 @@ def correlation_sums(x, delay, max_dimension=10, theiler=0, n_radii=32, referenc
     -------
     xr.Dataset with ``pair_count``, ``correlation_sum`` and ``local_slope`` on
     (dimension, radius). All dimensions use the same N - (M-1) tau vectors, so
-    ratios across m compare the same pairs.
+    ratios across m compare the same pairs. The radii are geometric, from
+    ``max(2 x resolution, extent x n_pairs^-0.4)`` to a quarter of the extent
+    (max - min of the series); the local slope is the least-squares slope of
+    ln C on ln r over five neighbouring radii, where at least ``MIN_PAIRS``
+    pairs are closer than r.
 
     References
     ----------
@@ -118,7 +121,8 @@ def correlation_sums(x, delay, max_dimension=10, theiler=0, n_radii=32, referenc
     radii, extent = _radii(values, n_radii, n_pairs)
 
     counts = np.zeros((max_dimension, n_radii), dtype=np.int64)
-    blocks = _row_blocks(rows, weights, min(20, rows.size))
+    # blocks of about 1e8 pair-dimensions (a fraction of a second) between progress reports
+    blocks = _row_blocks(rows, weights, int(np.clip(n_pairs * max_dimension // 10**8, 1, min(20, rows.size))))
     for b, block in enumerate(blocks):
         stage(f"counting pairs, m = 1..{max_dimension}", b / len(blocks))
         counts += pair_counts(values, delay, max_dimension, radii, theiler, block, one_sided)
