@@ -175,7 +175,7 @@ def test_dataset_shape_units_and_seed():
 
 def test_progress_and_cancel():
     seen = []
-    correlation_sums(np.asarray(henon(3000)), 1, 4, progress=lambda f, msg: seen.append(f))
+    correlation_sums(np.asarray(henon(20_000)), 1, 4, progress=lambda f, msg: seen.append(f))
     assert seen[0] == 0.0 and seen[-1] == 1.0 and seen == sorted(seen) and len(seen) > 5
     flag = threading.Event()
     flag.set()
