@@ -103,8 +103,10 @@ def capacity_dimension(bc_ds) -> dict:
     ----------
     Russell, Hanson & Ott, Phys. Rev. Lett. 45 (1980) 1175.
     """
-    if not isinstance(bc_ds, xr.Dataset) or "box_count" not in bc_ds:
-        raise LagspaceError("expected the dataset returned by box_counts (with box_count)")
+    if not isinstance(bc_ds, xr.Dataset) or "box_count" not in bc_ds or \
+            not {"extent", "n_vectors"} <= set(bc_ds.attrs):
+        raise LagspaceError("expected the dataset returned by box_counts "
+                            "(with box_count and the attributes extent and n_vectors)")
     sizes = bc_ds["box_size"].values
     counts = bc_ds["box_count"].values
     slope = bc_ds["box_count_slope"].values
