@@ -210,7 +210,8 @@ def read_bundle(source, *, max_inflated: int = MAX_INFLATED):
     try:
         prepared = prepare(recording, settings)
         summary = summarise(prepared, diagnostics, results, settings)
-    except (LagspaceError, KeyError, TypeError, ValueError) as exc:
+    except (LagspaceError, KeyError, TypeError, ValueError, AttributeError, IndexError, ArithmeticError,
+            RecursionError) as exc:  # what forged JSON attributes (a list for a dict, 1e400...) raise
         raise BundleError(f"bundle contents are inconsistent ({_brief(exc)}): {AGAIN}") from None
     from .analysis import Analysis  # the whole chain: imported only once the archive is found sound
 

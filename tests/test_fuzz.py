@@ -381,16 +381,26 @@ def test_mutated_valid_bundle_bytes(valid_bundle):
 
 
 def test_forged_bundle_members(valid_bundle):
-    """One member mutated and the manifest rewritten to match, so the reader parses the forgery."""
+    """One member changed and the manifest rewritten to match, so the reader parses the forgery:
+    bytes mutated, or the JSON attributes of a NetCDF member replaced by other JSON."""
     with zipfile.ZipFile(io.BytesIO(valid_bundle)) as zf:
         members = {n: zf.read(n) for n in zf.namelist() if n != "manifest.json"}
-    names = sorted(members)
+    datasets = {n: xr.open_dataset(io.BytesIO(d), engine="h5netcdf").load() for n, d in members.items()
+                if n.endswith(".nc")}
 
     @st.composite
     def forged(draw):
-        name = draw(st.sampled_from(names))
+        name = draw(st.sampled_from(sorted(members)))
         changed = dict(members)
-        changed[name] = draw(mutations(members[name]))
+        if name in datasets and draw(st.booleans()):
+            ds = datasets[name].copy()
+            ds.attrs = dict(ds.attrs)
+            for key in draw(st.lists(st.sampled_from(sorted(ds.attrs)), min_size=1, max_size=3)):
+                ds.attrs[key] = json.dumps(draw(JSON_VALUES)) if draw(st.booleans()) else draw(
+                    st.sampled_from([1e308, -1, 0, "x", 2**62]))
+            changed[name] = bytes(ds.to_netcdf(engine="h5netcdf"))
+        else:
+            changed[name] = draw(mutations(members[name]))
         return _rezip(changed)
 
-    _fuzz("read_bundle(forged members, matching hashes)", forged(), read_bundle_property, 150)
+    _fuzz("read_bundle(forged members, matching hashes)", forged(), read_bundle_property, 200)
