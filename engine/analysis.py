@@ -76,7 +76,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     cs = correlation.correlation_sums(
         x, delay=tau, max_dimension=max_dim, theiler=w, n_radii=settings.radii,
         reference_points=settings.reference_points, seed=settings.seed,
-        progress=stage.sub(0.05, 0.35), cancel=cancel,
+        progress=stage.callback(0.05, 0.35), cancel=cancel,
     )
     d2 = correlation.correlation_dimension(cs, m)
     estimates["correlation_dimension"] = d2
@@ -93,7 +93,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     dims = [d for d in (m - 1, m, m + 1) if d >= 1]
     div = lyapunov.divergence_rosenstein(
         x, delay=tau, dimensions=dims, theiler=w, steps=_steps(settings, tau, x.size),
-        progress=stage.sub(0.4, 0.55), cancel=cancel,
+        progress=stage.callback(0.4, 0.55), cancel=cancel,
     )
     kantz = lyapunov.divergence_kantz(x, delay=tau, dimensions=dims, theiler=w, steps=_steps(settings, tau, x.size))
     estimates["largest_lyapunov_exponent"] = lyapunov.largest_lyapunov(div, m, dt, unit)
@@ -108,7 +108,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
             segment, kind=settings.surrogate_kind, statistic=settings.surrogate_statistic,
             count=settings.surrogates, seed=settings.seed, delay=tau, dimension=m, theiler=w,
             sided="two" if settings.surrogates >= 39 else "one",
-            progress=stage.sub(0.6, 0.9), cancel=cancel,
+            progress=stage.callback(0.6, 0.9), cancel=cancel,
         )
         test = json_attr(sur, "surrogate_test")
         test["samples_used"] = int(segment.size)
@@ -158,8 +158,8 @@ def run_standard_analysis(recording: xr.Dataset, settings: Settings | None = Non
     settings = settings or Settings()
     stage = Stage(progress, cancel)
     prepared = prepare(recording, settings)
-    diagnostics = estimate(prepared, settings, progress=stage.sub(0.0, 0.25), cancel=cancel)
-    results = invariants(prepared, diagnostics, settings, progress=stage.sub(0.25, 1.0), cancel=cancel)
+    diagnostics = estimate(prepared, settings, progress=stage.callback(0.0, 0.25), cancel=cancel)
+    results = invariants(prepared, diagnostics, settings, progress=stage.callback(0.25, 1.0), cancel=cancel)
     return Analysis(recording, settings, prepared, diagnostics, results,
                     summarise(prepared, diagnostics, results, settings))
 

@@ -43,3 +43,9 @@ class Stage:
         """A stage covering [start, stop] of this stage."""
         span = self.stop - self.start
         return Stage(self.progress, self.cancel, self.start + span * start, self.start + span * stop)
+
+    def callback(self, start: float, stop: float) -> Callable[[float, str], None]:
+        """A plain ``progress(fraction, message)`` callback for [start, stop] of this stage,
+        to hand to a function that makes its own Stage."""
+        sub = self.sub(start, stop)
+        return lambda fraction, message: sub(message, fraction)
