@@ -5,17 +5,19 @@ Delay vector ``i`` of series ``x`` at (dimension m, delay tau) is
 Pairs with ``|i - j| <= theiler`` are excluded (so ``theiler=0`` excludes only
 ``i`` itself; Theiler 1986). Distances are in the maximum norm.
 
-The search is box-assisted (Grassberger 1990; Schreiber 1995): vectors are
-sorted into a square grid on their first and last coordinates, and a query
-visits rings of boxes outward until no unvisited box can hold a closer vector.
-Ties go to the smallest index, so results match the brute-force reference
-exactly.
+The search uses a k-d tree (Bentley 1975; Friedman, Bentley & Finkel 1977)
+built on the series itself: a permutation of vector indices split at the
+median of the widest coordinate, so memory stays O(N) and no vector is
+copied. A query descends to the nearer side first and skips a side once the
+distance to its splitting planes (a lower bound in the max norm) exceeds the
+best distance found. Ties go to the smallest index, so results match the
+brute-force reference exactly.
 
 References
 ----------
 Theiler, Phys. Rev. A 34 (1986) 2427.
-Grassberger, Phys. Lett. A 148 (1990) 63.
-Schreiber, Int. J. Bifurcation and Chaos 5 (1995) 349.
+Bentley, Commun. ACM 18 (1975) 509.
+Friedman, Bentley & Finkel, ACM Trans. Math. Software 3 (1977) 209.
 """
 
 from __future__ import annotations
@@ -26,120 +28,9 @@ import numpy as np
 from ..embedding import check_embedding
 from ..errors import LagspaceError
 
-# Average number of vectors per occupied box that the grid aims at.
-_POINTS_PER_BOX = 2.0
-# Guard against rounding when comparing a ring's geometric bound with a distance.
-_SLACK = 1.0 - 1e-9
-
-
-@numba.njit(cache=True, nogil=True)
-def _extent(x, dimension, delay, n):
-    """(min, max) of the first and of the last coordinate over vectors 0..n-1
-    (the last is taken as 0 for m = 1, where the grid is one row of boxes)."""
-    last = (dimension - 1) * delay
-    lo_a, hi_a, lo_b, hi_b = np.inf, -np.inf, 0.0, 0.0
-    for i in range(n):
-        lo_a = min(lo_a, x[i])
-        hi_a = max(hi_a, x[i])
-    if dimension > 1:
-        lo_b, hi_b = np.inf, -np.inf
-        for i in range(n):
-            lo_b = min(lo_b, x[i + last])
-            hi_b = max(hi_b, x[i + last])
-    return lo_a, hi_a, lo_b, hi_b
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _second(x, i, dimension, delay):
-    """The grid's second coordinate of vector i: its last, or 0 when m = 1."""
-    return x[i + (dimension - 1) * delay] if dimension > 1 else 0.0
-
-
-@numba.njit(cache=True, nogil=True)
-def _grid(x, dimension, delay, n, min_width):
-    """Sort vectors 0..n-1 into square boxes on their (first, last) coordinate.
-
-    The box width starts at the value that would put ``_POINTS_PER_BOX``
-    vectors in each box of a filled square and is halved (not below
-    ``min_width``) while occupied boxes hold more than twice that and halving
-    still splits them, so thin sets (maps, m=1) get small boxes too. Boxes are
-    stored sparsely: ``keys`` is the sorted box number ``a * boxes_b + b`` of
-    the vectors ``order``.
-    """
-    lo_a, hi_a, lo_b, hi_b = _extent(x, dimension, delay, n)
-    span = max(hi_a - lo_a, hi_b - lo_b)
-    boxes = n / _POINTS_PER_BOX if dimension == 1 else np.sqrt(n / _POINTS_PER_BOX)
-    width = span / max(boxes, 1.0) if span > 0.0 else 1.0
-    width = max(width, min_width)
-    keys = np.empty(n, dtype=np.int64)
-    previous = 0
-    while True:
-        boxes_a = int((hi_a - lo_a) / width) + 1
-        boxes_b = int((hi_b - lo_b) / width) + 1
-        for i in range(n):
-            a = min(int((x[i] - lo_a) / width), boxes_a - 1)
-            b = min(int((_second(x, i, dimension, delay) - lo_b) / width), boxes_b - 1)
-            keys[i] = a * boxes_b + b
-        sorted_keys = np.sort(keys)
-        occupied = 1
-        for k in range(1, n):
-            occupied += sorted_keys[k] != sorted_keys[k - 1]
-        # stop when boxes are small enough, or halving no longer splits them (duplicates)
-        if (n <= 2.0 * _POINTS_PER_BOX * occupied or width / 2 < min_width or occupied < 1.2 * previous
-                or span / width > 1e9):
-            break
-        previous = occupied
-        width /= 2
-    order = np.argsort(keys)
-    return lo_a, lo_b, width, boxes_a, boxes_b, keys[order], order
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _ring_segments(qb, ring, boxes_b):
-    """Number of segments of a ring to visit: 1 for ring 0, else its two rows
-    plus, unless both columns lie outside the grid, one box per side row."""
-    if ring == 0:
-        return 1
-    return 2 if (qb - ring < 0 and qb + ring >= boxes_b) else 4 * ring
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _ring_segment(qa, qb, ring, s):
-    """Segment ``s`` (row a, columns b0..b1) of the square ring of boxes at
-    Chebyshev distance ``ring`` around box (qa, qb): two full rows, then the
-    side boxes row by row."""
-    if ring == 0:
-        return qa, qb, qb
-    if s < 2:
-        return (qa - ring if s == 0 else qa + ring), qb - ring, qb + ring
-    s -= 2
-    return qa - ring + 1 + s // 2, (qb - ring if s % 2 == 0 else qb + ring), (qb - ring if s % 2 == 0 else qb + ring)
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _segment_range(sorted_keys, boxes_a, boxes_b, a, b0, b1):
-    """Positions [start, stop) in ``order`` of the vectors in boxes (a, b0..b1)."""
-    if a < 0 or a >= boxes_a:
-        return 0, 0
-    b0, b1 = max(b0, 0), min(b1, boxes_b - 1)
-    if b0 > b1:
-        return 0, 0
-    start = np.searchsorted(sorted_keys, a * boxes_b + b0)
-    stop = np.searchsorted(sorted_keys, a * boxes_b + b1, side="right")
-    return start, stop
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _outside(qa, qb, ring, boxes_a, boxes_b):
-    """True when the ring lies wholly outside the grid (nothing left to visit)."""
-    return qa - ring < 0 and qa + ring >= boxes_a and qb - ring < 0 and qb + ring >= boxes_b
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _box_of(x, i, dimension, delay, lo_a, lo_b, width, boxes_a, boxes_b):
-    qa = min(max(int(np.floor((x[i] - lo_a) / width)), 0), boxes_a - 1)
-    qb = min(max(int(np.floor((_second(x, i, dimension, delay) - lo_b) / width)), 0), boxes_b - 1)
-    return qa, qb
+_LEAF = 12  # at most this many vectors in a leaf
+_STACK = 256  # the tree is balanced, so a query never holds more than ~log2(N) pending nodes
+_CHUNKS = 256  # queries run in this many blocks (threads take blocks)
 
 
 @numba.njit(cache=True, nogil=True, inline="always")
@@ -155,6 +46,75 @@ def _distance(x, i, j, dimension, delay, limit):
     return d
 
 
+@numba.njit(cache=True, nogil=True)
+def _select(x, perm, lo, hi, nth, offset):
+    """Partially sort perm[lo:hi] by key ``x[perm + offset]`` so that position
+    ``nth`` holds its sorted key, no larger keys before and no smaller after
+    (Hoare's selection with a median-of-three pivot)."""
+    while hi - lo > 1:
+        a, b, c = x[perm[lo] + offset], x[perm[(lo + hi) // 2] + offset], x[perm[hi - 1] + offset]
+        if a < b:
+            pivot = b if b < c else (c if a < c else a)
+        else:
+            pivot = a if a < c else (c if b < c else b)
+        i, j = lo, hi - 1
+        while i <= j:
+            while x[perm[i] + offset] < pivot:
+                i += 1
+            while x[perm[j] + offset] > pivot:
+                j -= 1
+            if i <= j:
+                perm[i], perm[j] = perm[j], perm[i]
+                i += 1
+                j -= 1
+        if nth <= j:
+            hi = j + 1
+        elif nth >= i:
+            lo = i
+        else:
+            return
+
+
+@numba.njit(cache=True, nogil=True)
+def _tree(x, dimension, delay, n):
+    """k-d tree over vectors 0..n-1.
+
+    Returns (perm, start, stop, left, axis, split): node k holds vectors
+    ``perm[start[k]:stop[k]]``; an inner node's children are ``left[k]`` and
+    ``left[k] + 1`` (-1 for a leaf), holding coordinate ``axis[k]`` <= and >=
+    ``split[k]`` respectively.
+    """
+    perm = np.arange(n, dtype=np.int64)
+    cap = 4 * (n // _LEAF + 1) + 8
+    start, stop = np.empty(cap, np.int64), np.empty(cap, np.int64)
+    left, axis, split = np.full(cap, -1, np.int64), np.zeros(cap, np.int64), np.zeros(cap)
+    start[0], stop[0] = 0, n
+    count, todo, top = 1, np.empty(cap, np.int64), 1
+    todo[0] = 0
+    while top > 0:
+        top -= 1
+        node = todo[top]
+        s, e = start[node], stop[node]
+        widest, spread = 0, -1.0
+        for c in range(dimension):
+            a, b = np.inf, -np.inf
+            for p in range(s, e):
+                v = x[perm[p] + c * delay]
+                a, b = min(a, v), max(b, v)
+            if b - a > spread:
+                widest, spread = c, b - a
+        if e - s <= _LEAF or spread == 0.0:
+            continue
+        mid = (s + e) // 2
+        _select(x, perm, s, e, mid, widest * delay)
+        axis[node], split[node], left[node] = widest, x[perm[mid] + widest * delay], count
+        start[count], stop[count], start[count + 1], stop[count + 1] = s, mid, mid, e
+        todo[top], todo[top + 1] = count, count + 1
+        top, count = top + 2, count + 2
+    return perm, start[:count].copy(), stop[:count].copy(), left[:count].copy(), axis[:count].copy(), \
+        split[:count].copy()
+
+
 @numba.njit(cache=True, nogil=True, parallel=True)
 def nearest_neighbours_kernel(x, dimension, delay, theiler, n, exclude_zero):
     """Nearest neighbour of each of the first ``n`` delay vectors (see module doc).
@@ -162,52 +122,65 @@ def nearest_neighbours_kernel(x, dimension, delay, theiler, n, exclude_zero):
     Returns (index int64[n], distance float64[n]); index -1 and distance inf
     where no admissible neighbour exists.
     """
-    lo_a, lo_b, width, boxes_a, boxes_b, keys, order = _grid(x, dimension, delay, n, 0.0)
+    perm, start, stop, left, axis, split = _tree(x, dimension, delay, n)
     index = np.full(n, -1, dtype=np.int64)
     distance = np.full(n, np.inf)
-    for q in numba.prange(n):
-        i = order[q]  # queries in box order, so that neighbouring queries share candidates in cache
-        qa, qb = _box_of(x, i, dimension, delay, lo_a, lo_b, width, boxes_a, boxes_b)
-        best, best_j = np.inf, -1
-        ring = 0
-        while not (ring > 0 and (ring - 1) * width * _SLACK > best) and not _outside(qa, qb, ring, boxes_a, boxes_b):
-            for s in range(_ring_segments(qb, ring, boxes_b)):
-                a, b0, b1 = _ring_segment(qa, qb, ring, s)
-                start, stop = _segment_range(keys, boxes_a, boxes_b, a, b0, b1)
-                for p in range(start, stop):
-                    j = order[p]
-                    if abs(i - j) <= theiler:
-                        continue
-                    d = _distance(x, i, j, dimension, delay, best)
-                    if d > best or (exclude_zero and d == 0.0):
-                        continue
-                    if d < best or j < best_j:
-                        best, best_j = d, j
-            ring += 1
-        index[i] = best_j
-        distance[i] = best
+    for c in numba.prange(_CHUNKS):
+        stack, bounds = np.empty(_STACK, np.int64), np.empty(_STACK)
+        for q in range(c * n // _CHUNKS, (c + 1) * n // _CHUNKS):
+            i = perm[q]  # queries in tree order, so neighbouring queries share cached candidates
+            best, best_j = np.inf, -1
+            stack[0], bounds[0], top = 0, 0.0, 1
+            while top > 0:
+                top -= 1
+                node, bound = stack[top], bounds[top]
+                if bound > best:  # equal bounds are visited: a tie with a smaller index may wait there
+                    continue
+                child = left[node]
+                if child < 0:
+                    for p in range(start[node], stop[node]):
+                        j = perm[p]
+                        if abs(i - j) <= theiler:
+                            continue
+                        d = _distance(x, i, j, dimension, delay, best)
+                        if d > best or (exclude_zero and d == 0.0):
+                            continue
+                        if d < best or j < best_j:
+                            best, best_j = d, j
+                    continue
+                gap = x[i + axis[node] * delay] - split[node]
+                near, far = (child, child + 1) if gap < 0 else (child + 1, child)
+                if max(bound, abs(gap)) <= best:
+                    stack[top], bounds[top], top = far, max(bound, abs(gap)), top + 1
+                stack[top], bounds[top], top = near, bound, top + 1
+            index[i], distance[i] = best_j, best
     return index, distance
 
 
 @numba.njit(cache=True, nogil=True)
-def _within(x, dimension, delay, theiler, radius, i, grid, out, offset):
+def _within(x, dimension, delay, theiler, radius, i, tree, stack, bounds, out, offset):
     """Count the vectors closer than ``radius`` to vector i; write their
     indices from ``out[offset]`` on unless ``out`` is empty."""
-    lo_a, lo_b, width, boxes_a, boxes_b, keys, order = grid
-    qa, qb = _box_of(x, i, dimension, delay, lo_a, lo_b, width, boxes_a, boxes_b)
+    perm, start, stop, left, axis, split = tree
     count = 0
-    ring = 0
-    while (ring == 0 or (ring - 1) * width * _SLACK < radius) and not _outside(qa, qb, ring, boxes_a, boxes_b):
-        for s in range(_ring_segments(qb, ring, boxes_b)):
-            a, b0, b1 = _ring_segment(qa, qb, ring, s)
-            start, stop = _segment_range(keys, boxes_a, boxes_b, a, b0, b1)
-            for p in range(start, stop):
-                j = order[p]
+    stack[0], bounds[0], top = 0, 0.0, 1
+    while top > 0:
+        top -= 1
+        node, bound = stack[top], bounds[top]
+        child = left[node]
+        if child < 0:
+            for p in range(start[node], stop[node]):
+                j = perm[p]
                 if abs(i - j) > theiler and _distance(x, i, j, dimension, delay, radius) < radius:
                     if out.size:
                         out[offset + count] = j
                     count += 1
-        ring += 1
+            continue
+        gap = x[i + axis[node] * delay] - split[node]
+        near, far = (child, child + 1) if gap < 0 else (child + 1, child)
+        if max(bound, abs(gap)) < radius:
+            stack[top], bounds[top], top = far, max(bound, abs(gap)), top + 1
+        stack[top], bounds[top], top = near, bound, top + 1
     return count
 
 
@@ -216,19 +189,43 @@ def neighbours_within_kernel(x, dimension, delay, theiler, n, radius, points):
     """All vectors among the first ``n`` closer than ``radius`` to each vector in
     ``points`` (Theiler exclusion applies). Returns CSR (indptr, indices), each
     row sorted by index."""
-    grid = _grid(x, dimension, delay, n, 1.0001 * radius)
-    counts = np.zeros(points.size, dtype=np.int64)
+    tree = _tree(x, dimension, delay, n)
     empty = np.empty(0, dtype=np.int64)
-    for r in numba.prange(points.size):
-        counts[r] = _within(x, dimension, delay, theiler, radius, points[r], grid, empty, 0)
-    indptr = np.zeros(points.size + 1, dtype=np.int64)
-    for r in range(points.size):
+    counts = np.zeros(points.size, dtype=np.int64)
+    size = points.size
+    for c in numba.prange(_CHUNKS):
+        stack, bounds = np.empty(_STACK, np.int64), np.empty(_STACK)
+        for r in range(c * size // _CHUNKS, (c + 1) * size // _CHUNKS):
+            counts[r] = _within(x, dimension, delay, theiler, radius, points[r], tree, stack, bounds, empty, 0)
+    indptr = np.zeros(size + 1, dtype=np.int64)
+    for r in range(size):
         indptr[r + 1] = indptr[r] + counts[r]
     indices = np.empty(indptr[-1], dtype=np.int64)
-    for r in numba.prange(points.size):
-        _within(x, dimension, delay, theiler, radius, points[r], grid, indices, indptr[r])
-        indices[indptr[r]:indptr[r + 1]].sort()
+    for c in numba.prange(_CHUNKS):
+        stack, bounds = np.empty(_STACK, np.int64), np.empty(_STACK)
+        for r in range(c * size // _CHUNKS, (c + 1) * size // _CHUNKS):
+            _within(x, dimension, delay, theiler, radius, points[r], tree, stack, bounds, indices, indptr[r])
+            indices[indptr[r]:indptr[r + 1]].sort()
     return indptr, indices
+
+
+@numba.njit(cache=True, nogil=True)
+def radius_for_count_kernel(x, dimension, delay, theiler, n, points, target, low, high):
+    """Geometric bisection (to 10 %) for the radius at which the median of
+    ``points`` has at least ``target`` neighbours closer than it."""
+    tree = _tree(x, dimension, delay, n)
+    empty = np.empty(0, dtype=np.int64)
+    stack, bounds = np.empty(_STACK, np.int64), np.empty(_STACK)
+    counts = np.empty(points.size)
+    while high > 1.1 * low:
+        middle = np.sqrt(low * high)
+        for r in range(points.size):
+            counts[r] = _within(x, dimension, delay, theiler, middle, points[r], tree, stack, bounds, empty, 0)
+        if np.median(counts) < target:
+            low = middle
+        else:
+            high = middle
+    return high
 
 
 def nearest_neighbours(x, dimension, delay, theiler, n_vectors=None, exclude_zero=False):
@@ -250,7 +247,7 @@ def nearest_neighbours(x, dimension, delay, theiler, n_vectors=None, exclude_zer
 
     References
     ----------
-    Schreiber, Int. J. Bifurcation and Chaos 5 (1995) 349.
+    Friedman, Bentley & Finkel, ACM Trans. Math. Software 3 (1977) 209.
     """
     x, dimension, delay, theiler, n = _checked(x, dimension, delay, theiler, n_vectors)
     return nearest_neighbours_kernel(x, dimension, delay, theiler, n, bool(exclude_zero))
@@ -265,7 +262,7 @@ def neighbours_within(x, dimension, delay, theiler, radius, points=None, n_vecto
 
     References
     ----------
-    Grassberger, Phys. Lett. A 148 (1990) 63.
+    Bentley, Commun. ACM 18 (1975) 509.
     """
     x, dimension, delay, theiler, n = _checked(x, dimension, delay, theiler, n_vectors)
     points = np.arange(n, dtype=np.int64) if points is None else np.ascontiguousarray(points, dtype=np.int64)
