@@ -360,8 +360,9 @@ def correlation_entropy(cs_ds, scaling_range, sampling_interval, embedding_dimen
     -------
     dict with ``value`` = ``per_time_unit`` and ``uncertainty`` (per time
     unit), ``per_sample`` and ``uncertainty_per_sample``, ``per_dimension``
-    ({str(m): K2 per time unit}), ``scaling_range``, ``dimensions``,
-    ``method``, ``reason``.
+    ({str(m): K2 per time unit}), ``settles`` (K2(m) changes by less than
+    10 % over the dimensions used; if not, a line in ``warnings``),
+    ``scaling_range``, ``dimensions``, ``method``, ``reason``.
 
     References
     ----------
@@ -376,8 +377,8 @@ def correlation_entropy(cs_ds, scaling_range, sampling_interval, embedding_dimen
         raise LagspaceError("K2 needs the delay: pass the dataset of correlation_sums (attrs['delay'])")
     tau = int(cs_ds.attrs["delay"])
     out = {"value": None, "per_time_unit": None, "uncertainty": None, "per_sample": None,
-           "uncertainty_per_sample": None, "scaling_range": None, "dimensions": None, "per_dimension": {},
-           "method": "Grassberger-Procaccia: ln(C_m / C_m+1) per delay step"}
+           "uncertainty_per_sample": None, "settles": False, "scaling_range": None, "dimensions": None,
+           "per_dimension": {}, "warnings": [], "method": "Grassberger-Procaccia: ln(C_m / C_m+1) per delay step"}
     if scaling_range is None:
         out["reason"] = "no scaling range: the correlation dimension found none"
         return out
@@ -395,7 +396,15 @@ def correlation_entropy(cs_ds, scaling_range, sampling_interval, embedding_dimen
         out["reason"] = f"fewer than {MIN_PAIRS} pairs at some radii of the range at m = {m_lo + 1}..{n_dims}"
         return out
     value, spread = float(block.mean()), _spread(block)
+    per_m = block.mean(axis=1)
+    rise = np.polyfit(np.arange(per_m.size), per_m, 1)[0] * (per_m.size - 1) if per_m.size > 1 else 0.0
     out.update(value=value / (tau * dt), per_time_unit=value / (tau * dt), uncertainty=spread / (tau * dt),
                per_sample=value / tau, uncertainty_per_sample=spread / tau,
+               settles=bool(abs(rise) < SATURATION_TOLERANCE * value),
                reason=f"ln(C_m / C_m+1) for m = {m_lo}..{n_dims - 1} over r = {radii[a]:.4g}..{radii[b]:.4g}")
+    if not out["settles"]:
+        out["warnings"].append(
+            f"K2(m) still changes with m ({per_m[0] / (tau * dt):.3g} at m = {m_lo}, {per_m[-1] / (tau * dt):.3g} "
+            f"at m = {n_dims - 1} per time unit); K2 falls towards its limit as m grows, so this is an upper "
+            "bound: use a larger max_dimension")
     return out

@@ -132,6 +132,17 @@ def test_logistic_map_entropy_is_ln2(delay):
     assert k2["per_sample"] == pytest.approx(np.log(2), abs=0.05)
     assert k2["per_time_unit"] == pytest.approx(k2["per_sample"] / 0.5)
     assert k2["value"] == k2["per_time_unit"]
+    assert k2["settles"] is True and k2["warnings"] == []
+
+
+def test_unsettled_entropy_is_flagged():
+    # Grassberger & Procaccia, PRA 28 (1983) 2591: K2(m) approaches K2 from above as m grows; for the
+    # Lorenz flow at tau = 0.16 time units, m = 2..4 span too little time, and K2(m) still falls
+    ds = correlation_sums(np.asarray(lorenz(5000)), delay=16, max_dimension=5, theiler=100)
+    k2 = correlation_entropy(ds, [1.0, 3.0], sampling_interval=0.01, embedding_dimension=2)
+    per_m = [k2["per_dimension"][str(m)] for m in (2, 3, 4)]
+    assert per_m[0] > per_m[-1]
+    assert k2["settles"] is False and "upper bound" in k2["warnings"][0]
 
 
 def test_eckmann_ruelle_warning():
@@ -175,7 +186,7 @@ def test_dataset_shape_units_and_seed():
 
 def test_progress_and_cancel():
     seen = []
-    correlation_sums(np.asarray(henon(20_000)), 1, 4, progress=lambda f, msg: seen.append(f))
+    correlation_sums(np.asarray(henon(15_000)), 1, 4, progress=lambda f, msg: seen.append(f))
     assert seen[0] == 0.0 and seen[-1] == 1.0 and seen == sorted(seen) and len(seen) > 5
     flag = threading.Event()
     flag.set()

@@ -36,7 +36,7 @@ HERE = Path(__file__).resolve().parent
 sys.path[:0] = [str(HERE.parent.parent), str(HERE.parent)]
 
 DELAY, THEILER, MAX_DIM, REFERENCE_POINTS = 16, 100, 10, 5000
-MIN_FIT_TIME = 0.05
+MIN_FIT_TIME = 0.01
 
 
 # -- the stages --------------------------------------------------------------------
