@@ -24,6 +24,10 @@ from .embedding import check_embedding, embedded_length
 from .errors import LagspaceError
 
 SATURATION = 0.9  # a contour has levelled off once it reaches this fraction of its plateau
+# ... provided it has stopped rising: a straight line fitted to its later half grows by less than
+# 15 % of the plateau over that half (a random walk's contour grows by about 40 %, the approach of an
+# AR(1) to its plateau at 2-4 correlation times by about 6 %)
+RISING = 0.15
 
 
 def space_time_separation(x, delay: int, dimension: int, max_separation: int | None = None,
@@ -82,18 +86,39 @@ def suggest_theiler(st_ds: xr.Dataset, autocorrelation_time=None) -> dict:
     taken to have levelled off at the first separation where it reaches 90 % of its
     plateau, the median over the later half of the separations. The window is that
     separation, and never shorter than the autocorrelation 1/e time when one is given
-    (common practice). Without a plateau the window falls back to three
-    autocorrelation times, as stated in the reason.
+    (common practice). The contour counts as level only if a straight line fitted
+    to its later half rises by less than 15 % of the plateau over that half; if it
+    is still rising, the window falls back to three autocorrelation times
+    (common practice), or, without one, to the largest separation examined (the
+    window must be at least that long), as the reason and a warning say.
+
+    Returns
+    -------
+    dict with "value" (samples), "method", "reason", "warnings", "contour_quantile",
+    "plateau" (signal units), "levelled_off" and "units".
+
+    References
+    ----------
+    Provenzale, Smith, Vio & Murante, Physica D 58 (1992) 31.
+    Theiler, Phys. Rev. A 34 (1986) 2427.
     """
     if "space_time_quantile" not in st_ds:
         raise LagspaceError("suggest_theiler needs the dataset of space_time_separation")
+    if autocorrelation_time is not None and not (isinstance(autocorrelation_time, (int, float, np.integer))
+                                                 and autocorrelation_time > 0):
+        raise LagspaceError(f"autocorrelation_time must be a positive number of samples, got {autocorrelation_time!r}")
     qs = st_ds["quantile"].values
     level = qs[np.argmin(np.abs(qs - 0.1))]
     curve = st_ds["space_time_quantile"].sel(quantile=level).values
     seps = st_ds["separation"].values
     plateau = float(np.median(curve[curve.size // 2:]))
-    reached = np.flatnonzero(curve >= SATURATION * plateau) if plateau > 0 else np.array([], int)
-    acf = int(autocorrelation_time) if autocorrelation_time else None
+    half = seps[curve.size // 2:]
+    slope = np.polyfit(half, curve[curve.size // 2:], 1)[0] if half.size >= 2 else 0.0
+    rise = float(slope * (half[-1] - half[0]))  # growth of the fitted line over the later half
+    levelled = bool(plateau > 0 and rise < RISING * plateau)
+    reached = np.flatnonzero(curve >= SATURATION * plateau) if levelled else np.array([], int)
+    acf = int(np.ceil(autocorrelation_time)) if autocorrelation_time else None
+    warnings = []
     if reached.size:
         where = int(seps[reached[0]])
         value = max(where, acf or 1)
@@ -103,12 +128,20 @@ def suggest_theiler(st_ds: xr.Dataset, autocorrelation_time=None) -> dict:
             reason += f"; raised to the autocorrelation 1/e time of {acf} samples (common practice)"
         method = "space-time separation plot"
     else:
-        value = 3 * (acf or 1)
-        method = "fallback: three autocorrelation times"
-        reason = (f"the space-time contours do not level off within {int(seps[-1])} samples; "
-                  f"using three autocorrelation times ({value} samples)")
-    return {"value": int(value), "method": method, "reason": reason, "contour_quantile": float(level),
-            "plateau": plateau}
+        still = (f"the {level:.0%} distance contour is still rising at the largest separation examined, "
+                 f"{int(seps[-1])} samples (by {rise:.3g} over the later half, against a plateau of {plateau:.3g})"
+                 if plateau > 0 else f"the {level:.0%} distance contour stays at zero (repeated values)")
+        if acf:
+            value, method = 3 * acf, "fallback: three autocorrelation times"
+            reason = f"{still}; using three autocorrelation 1/e times, {value} samples (common practice)"
+        else:
+            value, method = int(seps[-1]), "fallback: largest separation examined"
+            reason = f"{still}; the window must be at least that long, so {value} samples are used"
+        warnings.append(f"the Theiler window is a fallback ({value} samples): {still}; examine larger "
+                        "separations or check the recording for drift")
+    return {"value": int(value), "method": method, "reason": reason, "warnings": warnings,
+            "contour_quantile": float(level), "plateau": plateau, "levelled_off": levelled,
+            "units": {"value": "sample", "plateau": "signal units"}}
 
 
 __all__ = ["space_time_separation", "suggest_theiler"]
