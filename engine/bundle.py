@@ -49,7 +49,13 @@ def _software() -> dict:
 
 
 def _netcdf_bytes(ds: xr.Dataset) -> bytes:
-    return bytes(ds.to_netcdf(engine="h5netcdf"))
+    # Inside a dask.distributed worker xarray would take a cluster-wide lock named after
+    # the in-memory target, which the scheduler does not know; the data are in memory,
+    # so the local synchronous scheduler (and a plain thread lock) is the right one.
+    import dask
+
+    with dask.config.set(scheduler="synchronous"):
+        return bytes(ds.to_netcdf(engine="h5netcdf"))
 
 
 def _sha256(data: bytes) -> str:
