@@ -71,8 +71,8 @@ def space_time_separation(x, delay: int, dimension: int, max_separation: int | N
         dist = np.abs(x[starts[:, None] + s + offsets] - first).max(axis=1)
         out[:, k] = np.quantile(dist, q)
     return xr.Dataset(
-        {"space_time_quantile": (("quantile", "separation"), out,
-                                 {"units": "signal units", "long_name": "quantile of the distance between delay vectors"})},
+        {"space_time_quantile": (("quantile", "separation"), out, {
+            "units": "signal units", "long_name": "quantile of the distance between delay vectors"})},
         coords={"quantile": ("quantile", q, {"units": "1", "long_name": "distance quantile"}),
                 "separation": ("separation", seps, {"units": "sample", "long_name": "time separation"})},
         attrs={"delay": delay, "dimension": dimension, "reference_points": count, "seed": int(seed)},

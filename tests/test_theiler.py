@@ -1,7 +1,6 @@
 """Space-time separation plot and Theiler window suggestion."""
 
 import numpy as np
-import pytest
 from scipy.spatial.distance import cdist
 
 import systems
