@@ -8,6 +8,7 @@ of the house"). The same matrix runs twice: through the engine (``load_recording
 a subprocess (``analyze FILE --json --quick``), which needs the whole analysis chain.
 """
 
+import contextlib
 import hashlib
 import io
 import json
@@ -303,38 +304,66 @@ def test_bundle_limit_on_total_size():
 
 # -- through the command line ----------------------------------------------------------------
 
+# Run as real processes (a Python start and the chain's imports cost about 2 s each): one case
+# of each kind. Every case also goes through the same `main` in this process, which is fast.
+SUBPROCESS = ["empty", "values 1e300", "pickled object .npy", "truncated HDF5", "huge header (200k columns)",
+              "member escapes with ../", "zip bomb (50 MB of zeros)", "line break in the file name"]
 
-def _run(path):
-    return subprocess.run([sys.executable, "-m", "engine.cli", "analyze", str(path), "--json", "--quick"],
-                          capture_output=True, text=True, timeout=300, cwd=path.parent,
-                          env={**os.environ, "PYTHONPATH": str(REPO)})
+
+def _case_file(case, folder: Path) -> tuple[Path, list]:
+    if case in RECORDINGS:
+        name, make, words = RECORDINGS[case]
+        data = make(folder)
+    else:
+        (make, words), name = BUNDLES[case], "bundle.zip"
+        data = make()
+    (folder / name).write_bytes(data)
+    return folder / name, words if "random" not in case else []
+
+
+def _one_error_line(code, stdout, stderr, path, words):
+    assert code == 2, (code, stderr[-2000:])
+    assert stdout == ""
+    assert "Traceback" not in stderr
+    lines = stderr.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), stderr[-2000:]
+    _says(lines[0], words)
+    assert [p.name for p in path.parent.iterdir()] == [path.name], "the command line unpickled or unpacked files"
 
 
 @pytest.fixture(scope="module")
-def cli(tmp_path_factory):
-    """Every case run through `lagspace analyze`, two at a time: {case: (completed process, path, words)}."""
+def processes(tmp_path_factory):
+    """The SUBPROCESS cases run as `python -m engine.cli analyze FILE --json --quick`, two at a time."""
     pytest.importorskip("engine.analysis", exc_type=ImportError)  # the CLI imports the whole chain
-    jobs = {}
-    for case, (name, make, words) in RECORDINGS.items():
-        folder = tmp_path_factory.mktemp("rec")
-        (folder / name).write_bytes(make(folder))
-        jobs[case] = (folder / name, words)
-    for case, (make, words) in BUNDLES.items():
-        folder = tmp_path_factory.mktemp("bundle")
-        (folder / "bundle.zip").write_bytes(make())
-        jobs[case] = (folder / "bundle.zip", words)
+    files = {case: _case_file(case, tmp_path_factory.mktemp("cli")) for case in SUBPROCESS}
+
+    def run(path):
+        return subprocess.run([sys.executable, "-m", "engine.cli", "analyze", str(path), "--json", "--quick"],
+                              capture_output=True, text=True, timeout=300, cwd=path.parent,
+                              env={**os.environ, "PYTHONPATH": str(REPO)})
+
     with ThreadPoolExecutor(2) as pool:
-        done = dict(zip(jobs, pool.map(_run, [path for path, _ in jobs.values()])))
-    return {case: (done[case], *jobs[case]) for case in jobs}
+        done = dict(zip(files, pool.map(run, [path for path, _ in files.values()])))
+    return {case: (done[case], *files[case]) for case in files}
+
+
+@pytest.mark.parametrize("case", SUBPROCESS)
+def test_cli_process_exits_2_with_one_line(processes, case):
+    out, path, words = processes[case]
+    _one_error_line(out.returncode, out.stdout, out.stderr, path, words)
 
 
 @pytest.mark.parametrize("case", sorted(RECORDINGS) + sorted(BUNDLES))
-def test_cli_refuses_with_one_line(cli, case):
-    out, path, words = cli[case]
-    assert out.returncode == 2, (out.returncode, out.stderr[-2000:])
-    assert out.stdout == ""
-    assert "Traceback" not in out.stderr
-    lines = out.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error: "), out.stderr[-2000:]
-    _says(lines[0], words if "random" not in case else [])
-    assert [p.name for p in path.parent.iterdir()] == [path.name], "the command line unpickled or unpacked files"
+def test_cli_main_exits_2_with_one_line(tmp_path, case):
+    pytest.importorskip("engine.analysis", exc_type=ImportError)
+    from engine.cli import main
+
+    path, words = _case_file(case, tmp_path)
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err), alarm(CASE_SECONDS):
+        code = main(["analyze", str(path), "--json", "--quick"])
+    _one_error_line(code, out.getvalue(), err.getvalue(), path, words)
+
+
+def test_subprocess_cases_exist():
+    assert set(SUBPROCESS) <= set(RECORDINGS) | set(BUNDLES)
