@@ -22,11 +22,15 @@ from concurrent.futures import ThreadPoolExecutor
 from functools import partial
 from typing import Callable, Optional
 
+import panel as pn
 import param
+from panel.io.state import set_curdoc
 
+from engine import analysis as analysis_mod
 from engine import bundle as bundle_mod
 from engine import delay as delay_mod
 from engine.checks import check_recording
+from engine.diagnostics import estimate as estimate_diagnostics
 from engine.errors import Cancelled, LagspaceError
 from engine.loading import describe_source, load_recording
 from engine.preparation import prepare
@@ -37,30 +41,16 @@ from engine.summary import summarise
 log = logging.getLogger(__name__)
 
 
-def estimate_diagnostics(*args, **kwargs):  # TEMPORARY lazy import until engine.dimension lands
-    from engine.diagnostics import estimate
-
-    return estimate(*args, **kwargs)
-
-
-class _LazyAnalysis:  # TEMPORARY lazy import until every invariant module lands
-    def __getattr__(self, name):
-        from engine import analysis
-
-        return getattr(analysis, name)
-
-
-analysis_mod = _LazyAnalysis()
-
 # One pool for every session of the server: numba kernels release the GIL, so two
 # sessions' analyses run side by side.
 EXECUTOR = ThreadPoolExecutor(max_workers=4, thread_name_prefix="lagspace-work")
 
 INPUT = ("variable",)
-PREPARATION = ("sampling_interval", "crop_start", "crop_stop", "detrend", "standardise", "resample", "fill_gaps", "max_gap")
+PREPARATION = ("sampling_interval", "crop_start", "crop_stop", "detrend", "standardise", "resample", "fill_gaps",
+               "max_gap")
 DIAGNOSTICS = ("delay", "dimension", "max_delay", "max_dimension", "mi_bins", "fnn_rtol", "fnn_atol",
                "fnn_threshold", "cao_threshold", "theiler")
-INVARIANTS = ("radii", "reference_points", "max_pairs_samples", "lyapunov_steps", "surrogates",
+INVARIANTS = ("radii", "reference_points", "lyapunov_steps", "surrogates",
               "surrogate_max_samples", "surrogate_kind", "surrogate_statistic", "recurrence_rate",
               "recurrence_max_points", "min_line", "seed")
 STAGES = ("input", "preparation", "diagnostics", "invariants")
@@ -111,7 +101,9 @@ class SessionState(param.Parameterized):
         self._keys: dict = {}                        # stage name -> settings key it was computed with
         self._lock = threading.Lock()
         self._cancel = threading.Event()
+        self._task = ""
         self._last_report = 0.0
+        self._thread = threading.local()             # .post: how a worker thread hands updates to the page
 
     # -- what is current ----------------------------------------------------------------------------
     @property
@@ -150,35 +142,35 @@ class SessionState(param.Parameterized):
         now = time.monotonic()
         if now - self._last_report >= 0.1 or fraction >= 1.0:
             self._last_report = now
-            self.param.update(progress=min(max(fraction, 0.0), 1.0), message=f"{self.task}: {message}")
+            self._apply(progress=min(max(fraction, 0.0), 1.0), message=f"{self._task}: {message}")
 
     def _run(self, task: str, work: Callable) -> bool:
         """Run ``work(progress, cancel)``; on failure show one line and keep what was there."""
         if not self._lock.acquire(blocking=False):
-            self.error = f"still {self.task.lower()}; wait for it or press Cancel"
+            self._apply(error=f"still {self._task.lower()}; wait for it or press Cancel")
             return False
-        self._cancel = threading.Event()
-        self.param.update(busy=True, task=task, progress=0.0, error="", message=f"{task} …")
+        self._cancel, self._task = threading.Event(), task
+        self._apply(busy=True, task=task, progress=0.0, error="", message=f"{task} …")
         try:
             work(self._report, self._cancel)
         except Cancelled:
-            self.message = f"{task} cancelled; earlier results are kept."
+            self._apply(message=f"{task} cancelled; earlier results are kept.")
             return False
         except LagspaceError as exc:
-            self.param.update(error=one_line(exc), message=f"{task} failed; earlier results are kept.")
+            self._apply(error=one_line(exc), message=f"{task} failed; earlier results are kept.")
             return False
         except MemoryError:
-            self.param.update(error="not enough memory for this; crop the recording or lower the limits",
+            self._apply(error="not enough memory for this; crop the recording or lower the limits",
                               message=f"{task} failed; earlier results are kept.")
             return False
         except Exception as exc:  # a bug: keep the session alive, log the traceback server-side
             log.exception("%s failed", task)
-            self.param.update(error=f"unexpected problem ({type(exc).__name__}: {one_line(exc)}); "
+            self._apply(error=f"unexpected problem ({type(exc).__name__}: {one_line(exc)}); "
                                     "please report it with the bundle or the file",
                               message=f"{task} failed; earlier results are kept.")
             return False
         finally:
-            self.param.update(busy=False, progress=0.0)
+            self._apply(busy=False, progress=0.0)
             self._lock.release()
         return True
 
@@ -186,10 +178,38 @@ class SessionState(param.Parameterized):
         """Ask the running work to stop at its next check."""
         self._cancel.set()
 
+    def _apply(self, **updates) -> None:
+        """Set parameters; from a worker started by :meth:`in_background`, hand them to the
+        session's event loop instead (in order), so that the page is only touched from there."""
+        post = getattr(self._thread, "post", None)
+        if post is None:
+            self.param.update(**updates)
+        else:
+            post(partial(self.param.update, **updates))
+
     async def in_background(self, method: Callable, *args, **kwargs):
-        """Await ``method(*args, **kwargs)`` run in the shared worker pool (for the pages)."""
+        """Await ``method(*args, **kwargs)`` run in the shared worker pool (for the pages).
+
+        Its parameter changes reach the page on the event loop, in order, before this returns.
+        """
         loop = asyncio.get_running_loop()
-        return await loop.run_in_executor(EXECUTOR, partial(method, *args, **kwargs))
+        doc = pn.state.curdoc
+
+        def in_session(fn):
+            if doc is None:
+                fn()
+            else:
+                with set_curdoc(doc):
+                    fn()
+
+        def call():
+            self._thread.post = lambda fn: loop.call_soon_threadsafe(in_session, fn)
+            try:
+                return method(*args, **kwargs)
+            finally:
+                self._thread.post = None
+
+        return await loop.run_in_executor(EXECUTOR, call)
 
     # -- loading ------------------------------------------------------------------------------------
     def load_bytes(self, data, name: str, *, variable=None, time_column=None, sampling_interval=None) -> bool:
@@ -201,7 +221,7 @@ class SessionState(param.Parameterized):
             info = describe_source(data, name=name)
             if info.get("needs_variable") and variable is None:
                 self._data = data
-                self.param.update(pending=dict(info, name=name), message=(
+                self._apply(pending=dict(info, name=name), message=(
                     f"{name} holds several variables: choose which one to analyse."))
                 return
             options = dict(variable=variable, time_column=time_column)
@@ -212,7 +232,7 @@ class SessionState(param.Parameterized):
             prepared, checks = self._prepare(rec, settings)
             self._data, self._load_options = data, options
             self._keys = {"prepared": _key(settings, 1)}
-            self.param.update(source_name=name, pending=None, raw=rec, prepared=prepared, checks=checks,
+            self._apply(source_name=name, pending=None, raw=rec, prepared=prepared, checks=checks,
                               settings=settings, diagnostics=None, analysis=None,
                               message=self._loaded_message(rec, checks))
 
@@ -221,7 +241,7 @@ class SessionState(param.Parameterized):
     def choose(self, *, variable=None, time_column=None, sampling_interval=None) -> bool:
         """Finish loading a pending ambiguous file with the user's choices."""
         if self.pending is None or self._data is None:
-            self.error = "no file is waiting for a choice; drop a recording first"
+            self._apply(error="no file is waiting for a choice; drop a recording first")
             return False
         return self.load_bytes(self._data, self.pending["name"], variable=variable,
                                time_column=time_column, sampling_interval=sampling_interval)
@@ -253,18 +273,18 @@ class SessionState(param.Parameterized):
         try:
             new = self.settings.replace(**changes)
         except (LagspaceError, TypeError) as exc:
-            self.error = one_line(exc)
+            self._apply(error=one_line(exc))
             return False
         changed = [k for k in changes if getattr(new, k) != getattr(self.settings, k)]
         if not changed:
             return True
         first = min(stage_of(k) for k in changed)
         if first == 3:
-            self.param.update(settings=new, error="",
+            self._apply(settings=new, error="",
                               message="Settings changed; press Run to compute the invariants with them.")
             return True
         if self.raw is None:
-            self.settings = new
+            self._apply(settings=new)
             return True
         had_diagnostics = self.diagnostics is not None
 
@@ -285,7 +305,7 @@ class SessionState(param.Parameterized):
             elif first <= 1:
                 update["diagnostics"] = None
             self._keys["prepared"] = _key(new, 1)
-            self.param.update(**update, message="Settings changed; what depends on them was recomputed."
+            self._apply(**update, message="Settings changed; what depends on them was recomputed."
                               + (" Press Run for the invariants." if self.analysis is not None else ""))
 
         return self._run("Applying the settings", work)
@@ -313,7 +333,7 @@ class SessionState(param.Parameterized):
         """Apply the one-click fix a check finding offers (its settings changes)."""
         changes = self.fix_changes(finding)
         if not changes:
-            self.error = f"this finding has no one-click fix; {finding.get('fix') or 'see its message'}"
+            self._apply(error=f"this finding has no one-click fix; {finding.get('fix') or 'see its message'}")
             return False
         return self.change_settings(**changes)
 
@@ -339,7 +359,7 @@ class SessionState(param.Parameterized):
             prepared, settings = self._need_prepared(), self.settings
             diag = estimate_diagnostics(prepared, settings, progress=progress, cancel=cancel)
             self._keys["diagnostics"] = _key(settings, 2)
-            self.param.update(diagnostics=diag, message="Delay and embedding dimension estimated; "
+            self._apply(diagnostics=diag, message="Delay and embedding dimension estimated; "
                                                         "check the reasons, then run the invariants.")
 
         return self._run("Estimating delay and dimension", work)
@@ -357,7 +377,7 @@ class SessionState(param.Parameterized):
             else:
                 result = analysis_mod.run_standard_analysis(self.raw, settings, progress=progress, cancel=cancel)
             self._keys.update(diagnostics=_key(settings, 2), analysis=_key(settings, 3))
-            self.param.update(analysis=result, diagnostics=result.diagnostics,
+            self._apply(analysis=result, diagnostics=result.diagnostics,
                               message="Analysis done. Read the verdict and the cautions before using the numbers.")
 
         return self._run("Running the analysis", work)
@@ -369,7 +389,7 @@ class SessionState(param.Parameterized):
             if self.analysis is None or self.analysis.results is None:
                 raise LagspaceError("run the analysis before adjusting its fit ranges")
             new = analysis_mod.refit(self.analysis, scaling_range=scaling_range, divergence_range=divergence_range)
-            self.param.update(analysis=new, message="Estimates refitted over the range you chose.")
+            self._apply(analysis=new, message="Estimates refitted over the range you chose.")
 
         return self._run("Refitting", work)
 
@@ -385,7 +405,7 @@ class SessionState(param.Parameterized):
             self._keys = {"prepared": _key(result.settings, 1), "diagnostics": _key(result.settings, 2)}
             if result.results is not None:
                 self._keys["analysis"] = _key(result.settings, 3)
-            self.param.update(source_name=name, pending=None, raw=result.recording, prepared=result.prepared,
+            self._apply(source_name=name, pending=None, raw=result.recording, prepared=result.prepared,
                               checks=checks, settings=result.settings, diagnostics=result.diagnostics,
                               analysis=result if result.results is not None else None,
                               message=f"Opened {name}: the recording, settings and results it holds.")

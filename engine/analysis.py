@@ -126,7 +126,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     estimates["recurrence"] = json_attr(rq, "recurrence")
     parts.append(rq)
 
-    results = xr.merge([_plain(p) for p in parts], join="outer", combine_attrs="drop")
+    results = xr.merge([_plain(p) for p in parts], join="outer", combine_attrs="override")
     results.attrs = {key: json.dumps(value) for key, value in estimates.items()}
     results.attrs["delay"] = tau
     results.attrs["embedding_dimension"] = m

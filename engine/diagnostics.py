@@ -90,7 +90,7 @@ def estimate(recording: xr.Dataset, settings: Settings | None = None, progress=N
     _apply_dimension_override(dim_suggestion, settings)
 
     stage("gathering diagnostics", 0.98)
-    ds = xr.merge([acf, ami, fnn, cao], combine_attrs="drop")
+    ds = xr.merge([acf, ami, fnn, cao], combine_attrs="override")
     warnings = list(suggestion.get("warnings", [])) + list(dim_suggestion.get("warnings", []))
     ds.attrs = {
         "delay": json.dumps(suggestion),

@@ -47,7 +47,6 @@ class Settings:
     theiler: Optional[int] = None
     radii: int = 32
     reference_points: Optional[int] = 5000
-    max_pairs_samples: int = 200_000
     lyapunov_steps: Optional[int] = None
     surrogates: int = 39
     surrogate_max_samples: int = 20_000
@@ -87,7 +86,6 @@ class Settings:
         positive_int("theiler", self.theiler, minimum=0, allow_none=True)
         positive_int("radii", self.radii, minimum=4)
         positive_int("reference_points", self.reference_points, minimum=10, allow_none=True)
-        positive_int("max_pairs_samples", self.max_pairs_samples, minimum=100)
         positive_int("lyapunov_steps", self.lyapunov_steps, minimum=2, allow_none=True)
         positive_int("surrogates", self.surrogates, minimum=0)
         positive_int("surrogate_max_samples", self.surrogate_max_samples, minimum=100)
