@@ -49,7 +49,7 @@ class Settings:
     reference_points: Optional[int] = 5000
     lyapunov_steps: Optional[int] = None
     surrogates: int = 39
-    surrogate_max_samples: int = 20_000
+    surrogate_max_samples: int = 10_000
     surrogate_kind: str = "iaaft"
     surrogate_statistic: str = "prediction_error"
     recurrence_rate: float = 0.05

@@ -19,7 +19,6 @@ not collect this file).
 from __future__ import annotations
 
 import argparse
-import importlib
 import json
 import resource
 import subprocess
@@ -95,11 +94,47 @@ def _boxes(x, n):
 
 
 def _analysis(x, n):
+    """The default standard analysis; the time of each of its stages is read off its progress messages."""
     from engine.analysis import run_standard_analysis
     from engine.recording import make_recording
 
-    run_standard_analysis(make_recording(x, sampling_interval=0.01, time_unit="s"))
+    marks = []
+    run_standard_analysis(make_recording(x, sampling_interval=0.01, time_unit="s"),
+                          progress=lambda f, message: marks.append((time.perf_counter(), message)))
+    stages, current = {}, None
+    for (t0, message), (t1, _) in zip(marks, marks[1:]):
+        current = message if message in ANALYSIS_STAGES else current  # inner messages count to their stage
+        if current:
+            stages[current] = stages.get(current, 0.0) + t1 - t0
+    return {"result": None, "stages": stages}
+
+
+ANALYSIS_STAGES = ("autocorrelation", "mutual information", "false nearest neighbours", "Cao's E1 and E2",
+                   "space-time separation", "correlation sums", "box counting", "divergence of neighbours",
+                   "surrogate data test", "recurrence quantification")
+
+
+def _neighbour_work(x, n):
+    """False neighbours, Cao's E1/E2 (m = 1..10) and Rosenstein divergence (m = 2..4)."""
+    from engine.dimension import cao, false_nearest_neighbours
+    from engine.lyapunov import divergence_rosenstein
+
+    false_nearest_neighbours(x, DELAY, MAX_DIM, theiler=THEILER)
+    cao(x, DELAY, MAX_DIM, theiler=THEILER)
+    divergence_rosenstein(x, DELAY, [2, 3, 4], THEILER, steps=300)
     return {"result": None}
+
+
+def _ckdtree_one_pass(x, n, ours):
+    """One cKDTree.count_neighbors pass at m = 4 with 16 radii (the yardstick for the whole analysis)."""
+    from scipy.spatial import cKDTree
+
+    m, k = 4, x.size - 3 * DELAY
+    v = np.stack([x[j * DELAY:j * DELAY + k] for j in range(m)], axis=1)
+    radii = np.geomspace(0.01, 0.25, 16) * np.ptp(x)
+    start = time.perf_counter()
+    cKDTree(v).count_neighbors(cKDTree(v), radii, p=np.inf)
+    return {"result": None, "time": time.perf_counter() - start}
 
 
 @dataclass
@@ -109,7 +144,6 @@ class Stage:
     sizes: list
     quick_sizes: list
     baseline: Optional[Callable] = None
-    needs: str = ""  # "module:attribute" that must exist for the stage to run
     fit_growth: bool = False
 
 
@@ -123,9 +157,12 @@ STAGES = [
           [1_000, 10_000, 100_000, 1_000_000], [1_000, 10_000, 100_000], fit_growth=True),
     Stage("box counting m=3, 16 sizes, vs N", _boxes,
           [1_000, 10_000, 100_000, 1_000_000], [1_000, 10_000, 100_000], fit_growth=True),
-    # nearest neighbours, surrogates, ...: append here
-    Stage("standard analysis (run_standard_analysis)", _analysis, [20_000], [5_000],
-          needs="engine.analysis:run_standard_analysis"),
+    Stage("nearest neighbours: FNN + Cao m=1..10, divergence", _neighbour_work, [50_000], [10_000],
+          fit_growth=False),
+    Stage("standard analysis vs one cKDTree pass (m=4, 16 r)", _analysis, [50_000], [10_000],
+          baseline=_ckdtree_one_pass),
+    Stage("standard analysis, vs N", _analysis, [1_000, 10_000, 100_000, 1_000_000], [1_000, 10_000],
+          fit_growth=True),
 ]
 
 
@@ -167,7 +204,7 @@ def _child(stage_index, which, n, data, ours_path, out):
         got = func(x, n)
         runs.append(got.get("time", time.perf_counter() - start))
     np.savez(out, **{k: v for k, v in got.items() if isinstance(v, np.ndarray)})
-    print(json.dumps({"time": min(runs), "peak_mb": _peak_mb()}))
+    print(json.dumps({"time": min(runs), "peak_mb": _peak_mb(), "stages": got.get("stages", {})}))
 
 
 def _spawn(stage_index, which, n, data, ours_path, out):
@@ -176,18 +213,6 @@ def _spawn(stage_index, which, n, data, ours_path, out):
     if done.returncode != 0:
         return {"error": (done.stderr.strip().splitlines() or ["failed"])[-1]}
     return json.loads(done.stdout.strip().splitlines()[-1])
-
-
-def _missing(needs):
-    """Why a stage cannot run yet ("" when it can)."""
-    if not needs:
-        return ""
-    module, attribute = needs.split(":")
-    try:
-        getattr(importlib.import_module(module), attribute)
-    except Exception as exc:  # a stage whose code is not there yet is skipped, not failed
-        return f"skipped: {type(exc).__name__}: {exc}"
-    return ""
 
 
 def main(argv=None):
@@ -207,11 +232,7 @@ def main(argv=None):
         for i, stage in enumerate(STAGES):
             if args.only and args.only not in stage.name:
                 continue
-            skipped = _missing(stage.needs)
-            if skipped:
-                print(f"{stage.name:<48} {'':>9} {'':>9} {'':>9} {'':>8} {'':>8}  {skipped}")
-                continue
-            times = []
+            times, per_stage = [], {}
             for n in (stage.quick_sizes if args.quick else stage.sizes):
                 data = _lorenz(n, tmp)
                 ours_path, base_path = tmp / "ours.npz", tmp / "base.npz"
@@ -226,18 +247,31 @@ def main(argv=None):
                     if "error" in base:
                         note = f"baseline error: {base['error']}"
                     else:
-                        same = np.array_equal(np.load(ours_path)["result"], np.load(base_path)["result"])
+                        mine, theirs = np.load(ours_path), np.load(base_path)
                         base_t, ratio = f"{base['time']:.2f}", f"{base['time'] / ours['time']:.1f}x"
-                        note = ("identical counts" if same else "COUNTS DIFFER") + \
-                               f"; scipy peak {base['peak_mb']:.0f} MB"
+                        note = f"scipy peak {base['peak_mb']:.0f} MB"
+                        if "result" in mine and "result" in theirs:
+                            same = np.array_equal(mine["result"], theirs["result"])
+                            note = ("identical counts" if same else "COUNTS DIFFER") + "; " + note
                 print(f"{stage.name:<48} {n:>9} {ours['time']:>9.2f} {base_t:>9} {ratio:>8} "
                       f"{ours['peak_mb']:>8.0f}  {note}", flush=True)
-            timed = [(n, t) for n, t in times if t >= MIN_FIT_TIME]
-            if stage.fit_growth and len(timed) >= 2:
-                n, t = np.log(np.array(timed)).T
-                print(f"{'':<48} {'':>9} growth exponent: time ~ N^{np.polyfit(n, t, 1)[0]:.2f} "
-                      f"(fitted over N = {', '.join(f'{v:.0e}' for v, _ in timed)}; times under "
-                      f"{MIN_FIT_TIME} s are mostly overhead)")
+                for name, seconds in ours.get("stages", {}).items():
+                    per_stage.setdefault(name, []).append((n, seconds))
+                    print(f"{'  ' + name:<48} {n:>9} {seconds:>9.2f}")
+            if stage.fit_growth:
+                _print_growth(stage.name, times)
+                for name, pairs in per_stage.items():
+                    _print_growth("  " + name, pairs)
+
+
+def _print_growth(name, times):
+    """Fitted exponent k of time ~ N^k over the cases that took at least MIN_FIT_TIME."""
+    timed = [(n, t) for n, t in times if t >= MIN_FIT_TIME]
+    if len(timed) >= 2:
+        n, t = np.log(np.array(timed)).T
+        print(f"{name:<48} growth exponent: time ~ N^{np.polyfit(n, t, 1)[0]:.2f} "
+              f"(fitted over N = {', '.join(f'{v:.0e}' for v, _ in timed)}; times under "
+              f"{MIN_FIT_TIME} s are mostly overhead)")
 
 
 if __name__ == "__main__":
