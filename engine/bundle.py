@@ -18,7 +18,6 @@ import json
 import os
 import platform
 import re
-import tempfile
 import zipfile
 from pathlib import Path
 
@@ -109,7 +108,8 @@ def write_bundle_bytes(data: bytes, path) -> Path:
     folder = path.parent
     if not folder.is_dir():
         raise LagspaceError(f"folder {str(folder)!r} does not exist; create it or choose another place for the bundle")
-    fd, tmp = tempfile.mkstemp(prefix=".lagspace-", suffix=".zip.part", dir=folder)
+    tmp = os.path.join(folder, f".lagspace-{os.urandom(8).hex()}.zip.part")
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # the umask applies, as to any file the user writes
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)

@@ -367,3 +367,17 @@ def test_cli_main_exits_2_with_one_line(tmp_path, case):
 
 def test_subprocess_cases_exist():
     assert set(SUBPROCESS) <= set(RECORDINGS) | set(BUNDLES)
+
+
+def test_bundle_written_with_the_users_umask(tmp_path):
+    # Common practice: files a tool writes get the permissions the umask allows (0644 under umask 022),
+    # so colleagues on the shared machine can read a bundle; a private temporary file's 0600 must not stay.
+    from engine.bundle import write_bundle_bytes
+
+    old = os.umask(0o022)
+    try:
+        path = write_bundle_bytes(_bundle(_members()), tmp_path / "out.zip")
+    finally:
+        os.umask(old)
+    assert path.stat().st_mode & 0o777 == 0o644
+    assert [p.name for p in tmp_path.iterdir()] == ["out.zip"]
