@@ -33,7 +33,7 @@ import systems
 from test_fuzz import CASE_SECONDS, alarm
 from engine.bundle import read_bundle
 from engine.errors import BundleError, RecordingError
-from engine.loading import load_recording
+from engine.loading import describe_source, load_recording
 from engine.preparation import prepare
 from engine.recording import make_recording
 from engine.settings import Settings
@@ -259,6 +259,10 @@ def test_recording_refused_by_engine(tmp_path, case):
     _says(str(err.value), words if "random" not in case else [])
     assert not (tmp_path / "unpickled").exists(), "the loader unpickled an upload"
     assert peak < 60e6 + 30 * len(data), f"{peak / 1e6:.0f} MB allocated for a {len(data)}-byte file"
+    try:  # what the dashboard asks first: a description, or the same kind of refusal
+        assert isinstance(describe_source(data, name=name), dict)
+    except RecordingError as exc:
+        _says(str(exc), [])
 
 
 def test_trap_would_fire(tmp_path):
