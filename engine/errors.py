@@ -6,7 +6,13 @@ command line and the dashboard can show it as it is.
 
 
 class LagspaceError(ValueError):
-    """Bad input or settings: the message says what is wrong and what would work."""
+    """Bad input or settings: the message says what is wrong and what would work.
+
+    The message is always one line, whatever line breaks a file name or header brought in.
+    """
+
+    def __str__(self) -> str:
+        return " ".join(super().__str__().split())
 
 
 class RecordingError(LagspaceError):

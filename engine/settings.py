@@ -60,11 +60,11 @@ class Settings:
     def __post_init__(self):
         errs = []
 
-        def positive_int(name, value, minimum=1, allow_none=False):
+        def positive_int(name, value, minimum=1, allow_none=False, maximum=10**9):
             if value is None and allow_none:
                 return
-            if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
-                errs.append(f"{name} must be a whole number >= {minimum}, got {value!r}")
+            if isinstance(value, bool) or not isinstance(value, int) or not minimum <= value <= maximum:
+                errs.append(f"{name} must be a whole number from {minimum} to {maximum}, got {value!r}")
 
         def positive_float(name, value, allow_none=False):
             if value is None and allow_none:
@@ -73,25 +73,25 @@ class Settings:
                 errs.append(f"{name} must be a positive number, got {value!r}")
 
         positive_float("sampling_interval", self.sampling_interval, allow_none=True)
-        positive_int("delay", self.delay, allow_none=True)
+        positive_int("delay", self.delay, allow_none=True, maximum=100000)
         positive_int("dimension", self.dimension, allow_none=True)
-        positive_int("max_delay", self.max_delay, allow_none=True)
+        positive_int("max_delay", self.max_delay, allow_none=True, maximum=100000)
         positive_int("max_dimension", self.max_dimension, minimum=2)
-        positive_int("mi_bins", self.mi_bins, minimum=2, allow_none=True)
-        positive_int("max_gap", self.max_gap)
+        positive_int("mi_bins", self.mi_bins, minimum=2, allow_none=True, maximum=1024)
+        positive_int("max_gap", self.max_gap, maximum=10000)
         positive_float("fnn_rtol", self.fnn_rtol)
         positive_float("fnn_atol", self.fnn_atol)
         positive_float("fnn_threshold", self.fnn_threshold)
         positive_float("cao_threshold", self.cao_threshold)
-        positive_int("theiler", self.theiler, minimum=0, allow_none=True)
-        positive_int("radii", self.radii, minimum=4)
-        positive_int("reference_points", self.reference_points, minimum=10, allow_none=True)
-        positive_int("lyapunov_steps", self.lyapunov_steps, minimum=2, allow_none=True)
-        positive_int("surrogates", self.surrogates, minimum=0)
-        positive_int("surrogate_max_samples", self.surrogate_max_samples, minimum=100)
-        positive_int("recurrence_max_points", self.recurrence_max_points, minimum=10)
-        positive_int("min_line", self.min_line, minimum=2)
-        positive_int("seed", self.seed, minimum=0)
+        positive_int("theiler", self.theiler, minimum=0, allow_none=True, maximum=100000)
+        positive_int("radii", self.radii, minimum=4, maximum=256)
+        positive_int("reference_points", self.reference_points, minimum=10, allow_none=True, maximum=1000000)
+        positive_int("lyapunov_steps", self.lyapunov_steps, minimum=2, allow_none=True, maximum=100000)
+        positive_int("surrogates", self.surrogates, minimum=0, maximum=999)
+        positive_int("surrogate_max_samples", self.surrogate_max_samples, minimum=100, maximum=10000000)
+        positive_int("recurrence_max_points", self.recurrence_max_points, minimum=10, maximum=20000)
+        positive_int("min_line", self.min_line, minimum=2, maximum=1000)
+        positive_int("seed", self.seed, minimum=0, maximum=4294967295)
         if isinstance(self.surrogates, int) and 0 < self.surrogates < 19:
             errs.append(f"surrogates must be 0 (no test) or at least 19 (one-sided rank test at 5%), "
                         f"got {self.surrogates}")
