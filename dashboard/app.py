@@ -47,7 +47,7 @@ def build_app(demo_path: Path | str | None = None) -> pn.template.BootstrapTempl
     """The whole dashboard for one browser session (``demo_path``: a recording to open at start)."""
     state = SessionState()
     pages = [RecordingPage(state=state), EmbeddingPage(state=state), InvariantsPage(state=state)]
-    tabs = pn.Tabs(*[(p.title, p) for p in pages], dynamic=True, sizing_mode="stretch_width")
+    tabs = pn.Tabs(*[(p.title, p) for p in pages], sizing_mode="stretch_width")
     template = pn.template.BootstrapTemplate(
         title="lagspace", sidebar=[BundleTools(state=state), pn.pane.HTML(HELP, margin=(16, 10))],
         main=[StatusBar(state=state), tabs], header_background=style.INK, sidebar_width=290,

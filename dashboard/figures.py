@@ -79,7 +79,7 @@ def _signal_label(rec: xr.Dataset) -> str:
 
 def _var_label(ds: xr.Dataset, var: str) -> str:
     attrs = ds[var].attrs
-    label = attrs.get("long_name", var)
+    label = attrs.get("long_name", var.replace("_", " "))
     units = attrs.get("units", "1")
     return label if units in ("", "1") else f"{label} ({units})"
 
@@ -192,7 +192,7 @@ def delay_plot(rec: xr.Dataset, delay: int, max_points: int = MAX_CLOUD_POINTS) 
     shown = "" if v.shape[0] <= max_points else f" (first {max_points:,} of {v.shape[0]:,} points)"
     kx, ky = _pair_axes(rec, delay)
     return hv.Path([v[:max_points]], kdims=[kx, ky]).opts(
-        color=style.INK, line_width=0.6, alpha=0.8, responsive=True, height=360,
+        color=style.INK, line_width=0.8, alpha=0.9, responsive=True, height=360,
         title=f"delay plot, delay {delay} samples{shown}", show_grid=True, toolbar="above")
 
 
@@ -204,10 +204,9 @@ def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: 
     p = project(np.asarray(v[thin_indices(v.shape[0], max_points)]), azimuth, elevation)
     reach = float(np.sqrt((p ** 2).sum(axis=1)).max()) * 1.05 or 1.0   # same frame at every angle
     pts = hv.Points((p[:, 0], p[:, 1], -p[:, 2]), kdims=["across", "up"], vdims=["nearness"])
-    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, frame_width=380,
-                    frame_height=380, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
-                    toolbar="above", title=f"3-D delay view, delay {delay} samples (turn {azimuth:.0f}°, "
-                                           f"tilt {elevation:.0f}°; darker = nearer)")
+    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, frame_width=330,
+                    frame_height=330, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
+                    toolbar=None, title=f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)")
 
 
 def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layout:
@@ -218,7 +217,7 @@ def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layou
         if x.size - int(d) < 2:
             continue
         v = delay_vectors(x, 2, int(d))[:max_points]
-        plots.append(hv.Path([v]).opts(color=style.INK, line_width=0.5, alpha=0.8, xaxis=None, yaxis=None,
+        plots.append(hv.Path([v]).opts(color=style.INK, line_width=0.7, alpha=0.9, xaxis=None, yaxis=None,
                                        width=170, height=170, title=f"delay {d}", toolbar=None))
     return hv.Layout(plots).cols(len(plots) or 1)
 
@@ -244,8 +243,8 @@ def _per_dimension(ds: xr.Dataset, var: str, xdim: str, chosen: int | None, labe
         thick = chosen is not None and int(m) == int(chosen)
         curves.append(hv.Curve((ds[xdim].values[ok], y[ok]), kdims=[label],
                                vdims=[hv.Dimension(var, label=_var_label(ds, var))], label=f"m = {int(m)}").opts(
-            color=style.CLAY if thick else style.dimension_colour(i, len(dims)),
-            line_width=3 if thick else 1.5, tools=["hover"], **opts))
+            **{"tools": ["hover"], **opts, "color": style.CLAY if thick else style.dimension_colour(i, len(dims)),
+               "line_width": 3 if thick else 1.5}))
     return curves
 
 
@@ -272,9 +271,9 @@ def local_slopes(results: xr.Dataset, summary: dict):
         parts.insert(0, hv.VSpan(*rng).opts(color=style.SAND, alpha=0.5))
     if d2.get("value") is not None:
         parts.append(hv.HLine(d2["value"]).opts(color=style.CLAY, line_dash="dashed", line_width=1.5))
-    title = ("correlation dimension D2 = " + _pm(d2) if d2.get("value") is not None
-             else f"no correlation dimension: {d2.get('reason', 'no scaling range')}")
-    return hv.Overlay(parts).opts(title=title, legend_position="right", show_legend=True)
+    title = f"D2 = {_pm(d2)}" if d2.get("value") is not None else "no correlation dimension (see the table)"
+    return hv.Overlay(parts).opts(title=title, legend_position="right", show_legend=True,
+                                  xlabel=radius.label, ylabel="local slope d ln C / d ln r")
 
 
 def correlation_sums(results: xr.Dataset, summary: dict):
@@ -290,7 +289,8 @@ def correlation_sums(results: xr.Dataset, summary: dict):
     rng = (summary.get("correlation_dimension") or {}).get("scaling_range")
     if rng:
         parts.insert(0, hv.VSpan(*rng).opts(color=style.SAND, alpha=0.5))
-    return hv.Overlay(parts).opts(title="correlation sums", legend_position="right")
+    return hv.Overlay(parts).opts(title="correlation sums C(r)", legend_position="right", xlabel=radius.label,
+                                  ylabel="correlation sum C(r)")
 
 
 def divergence(results: xr.Dataset, summary: dict):
@@ -300,15 +300,16 @@ def divergence(results: xr.Dataset, summary: dict):
         return _note("no divergence curves")
     lle = summary.get("largest_lyapunov_exponent") or {}
     m = (summary.get("embedding_dimension") or {}).get("value")
-    step = _coord_label(results, "step", "steps ahead")
+    step = _coord_label(results, "step", "steps ahead (samples)")
     parts = _per_dimension(results, "divergence", "step", m, step, tools=["hover", "xbox_select"], **style.PLOT)
     fit = lle.get("fit_range")
     if fit:
         parts.insert(0, hv.VSpan(*fit).opts(color=style.SAND, alpha=0.5))
     unit = (summary.get("input") or {}).get("time_unit", "sample")
-    title = (f"largest Lyapunov exponent {_pm(lle, 'per_time_unit')} per {unit}"
-             if lle.get("per_time_unit") is not None else f"no exponent: {lle.get('reason', 'no fit range')}")
-    return hv.Overlay(parts).opts(title=title, legend_position="right")
+    title = (f"largest exponent {_pm(lle, 'per_time_unit')} per {unit}" if lle.get("per_time_unit") is not None
+             else "no exponent (see the table)")
+    return hv.Overlay(parts).opts(title=title, legend_position="right", xlabel=step.label,
+                                  ylabel="mean ln distance of neighbours")
 
 
 def box_counting(results: xr.Dataset, summary: dict):
@@ -326,9 +327,8 @@ def box_counting(results: xr.Dataset, summary: dict):
     fit = cap.get("fit_range")
     if fit:
         parts.insert(0, hv.VSpan(*fit).opts(color=style.SAND, alpha=0.5))
-    title = (f"capacity dimension {_pm(cap)}" if cap.get("value") is not None
-             else f"no capacity dimension: {cap.get('reason', 'no fit range')}")
-    return hv.Overlay(parts).opts(title=title)
+    title = f"capacity dimension {_pm(cap)}" if cap.get("value") is not None else "no capacity dimension (see the table)"
+    return hv.Overlay(parts).opts(title=title, xlabel=size.label, ylabel="occupied boxes N(eps)")
 
 
 def surrogate_histogram(results: xr.Dataset, summary: dict):
@@ -344,11 +344,14 @@ def surrogate_histogram(results: xr.Dataset, summary: dict):
                         vdims=[hv.Dimension("count", label="surrogates")]).opts(
         color=style.DIMENSION_RAMP[2], line_color="white", tools=["hover"], **style.PLOT)
     parts = [hist]
-    if test.get("data_statistic") is not None:
-        parts.append(hv.VLine(test["data_statistic"]).opts(color=style.CLAY, line_width=3))
-    p = test.get("p_value")
-    title = f"{test.get('surrogates', values.size)} surrogates; data (line) p = {_fmt(p, 2)}"
-    return hv.Overlay(parts).opts(title=title)
+    data = test.get("data_statistic")
+    lo, hi = float(edges[0]), float(edges[-1])
+    if data is not None:
+        parts.append(hv.VLine(data).opts(color=style.CLAY, line_width=3))
+        lo, hi = min(lo, data), max(hi, data)
+    pad = 0.05 * (hi - lo or 1.0)
+    title = f"{values.size} surrogates (bars), the data (line): p = {_fmt(test.get('p_value'), 2)}"
+    return hv.Overlay(parts).opts(title=title, xlim=(lo - pad, hi + pad), xlabel=label, ylabel="surrogates")
 
 
 def recurrence_plot(results: xr.Dataset, pixels: int = 400):
@@ -369,15 +372,14 @@ def recurrence_plot(results: xr.Dataset, pixels: int = 400):
     rate = facts.get("recurrence_rate")
     return img.opts(cmap=["#ffffff", style.INK], frame_width=380, frame_height=380, colorbar=False,
                     tools=["hover"], toolbar="above",
-                    title=f"recurrence plot, {n:,} vectors, radius {_fmt(facts.get('radius'))}, "
-                          f"rate {_fmt(rate, 2)}")
+                    title=f"{n:,} vectors, radius {_fmt(facts.get('radius'))}, rate {_fmt(rate, 2)}")
 
 
 def space_time(results: xr.Dataset, theiler: int | None):
     """Space-time separation: distance quantiles against time separation, Theiler window marked."""
     if results is None or "space_time_quantile" not in results:
         return _note("no space-time separation plot")
-    sep = _coord_label(results, "separation", "time separation")
+    sep = _coord_label(results, "separation", "time separation (samples)")
     parts = []
     qs = results["quantile"].values
     for i, q in enumerate(qs):
@@ -388,8 +390,9 @@ def space_time(results: xr.Dataset, theiler: int | None):
                                                           tools=["hover"], **style.PLOT))
     if theiler is not None:
         parts.append(hv.VLine(theiler).opts(color=style.CLAY, line_dash="dashed", line_width=2))
-    return hv.Overlay(parts).opts(title=f"space-time separation — Theiler window {theiler} samples",
-                                  legend_position="right")
+    return hv.Overlay(parts).opts(title=f"distance quantiles; Theiler window {theiler} samples (dashed)",
+                                  legend_position="right", xlabel=sep.label,
+                                  ylabel="distance between delay vectors")
 
 
 def _pm(est: dict, key: str = "value") -> str:

@@ -84,6 +84,7 @@ def _open(browser, url):
     problems = []
     page.on("console", lambda m: problems.append(m.text) if m.type == "error" else None)
     page.on("pageerror", lambda e: problems.append(str(e)))
+    page.on("requestfailed", lambda r: problems.append(f"request failed: {r.url}"))
     page.goto(url)
     page.get_by_text("1 · Recording").first.wait_for(timeout=60_000)
     return page, problems

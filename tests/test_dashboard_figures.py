@@ -125,3 +125,49 @@ def test_surrogate_histogram_counts_every_surrogate_and_marks_the_data():
     assert hist.dimension_values(1).sum() == 19
     assert line.data == summary["surrogate_test"]["data_statistic"]
     assert hv.render(overlay) is not None
+
+
+@pytest.fixture(scope="module")
+def henon_analysis():
+    from engine.analysis import run_standard_analysis
+    from engine.settings import Settings
+
+    rec = make_recording(systems.henon(2000), name="x")
+    return run_standard_analysis(rec, Settings(surrogates=19, max_dimension=5, recurrence_max_points=500))
+
+
+def _spans(overlay):
+    return [el for el in overlay if isinstance(el, hv.VSpan)]
+
+
+def test_result_figures_draw_the_engines_ranges(henon_analysis):
+    res, summary = henon_analysis.results, henon_analysis.summary
+    slopes = figures.local_slopes(res, summary)
+    rng = summary["correlation_dimension"]["scaling_range"]
+    if rng:
+        assert [tuple(s.data) for s in _spans(slopes)] == [tuple(rng)]
+    curves = [el for el in slopes if isinstance(el, hv.Curve)]
+    assert len(curves) == int(np.isfinite(res["local_slope"].values).any(axis=1).sum())
+    chosen = summary["embedding_dimension"]["value"]
+    assert [c.label for c in curves if c.opts.get().kwargs["color"] == figures.style.CLAY] == [f"m = {chosen}"]
+    fit = summary["largest_lyapunov_exponent"]["fit_range"]
+    div = figures.divergence(res, summary)
+    assert [tuple(s.data) for s in _spans(div)] == ([tuple(fit)] if fit else [])
+    assert figures.selectable(slopes) is curves[0]
+
+
+def test_result_figures_render(henon_analysis):
+    res, summary = henon_analysis.results, henon_analysis.summary
+    diag = henon_analysis.diagnostics
+    for fig in (figures.local_slopes(res, summary), figures.correlation_sums(res, summary),
+                figures.divergence(res, summary), figures.box_counting(res, summary),
+                figures.surrogate_histogram(res, summary), figures.recurrence_plot(res),
+                figures.space_time(res, summary["theiler_window"]["samples"]),
+                figures.delay_curves(diag), figures.dimension_curves(diag)):
+        assert hv.render(fig) is not None
+
+
+def test_missing_results_give_a_note_not_an_error():
+    for fig in (figures.local_slopes(None, {}), figures.divergence(None, {}), figures.box_counting(None, {}),
+                figures.surrogate_histogram(None, {}), figures.recurrence_plot(None), figures.space_time(None, 3)):
+        assert isinstance(fig, hv.Text)

@@ -195,3 +195,43 @@ def test_progress_and_cancel(loaded):
 
     assert not loaded._run("Testing", work)
     assert 0.5 in seen and "cancelled" in loaded.message and not loaded.busy
+
+
+def test_estimate_then_override_recomputes_only_the_diagnostics(loaded):
+    from engine.recording import json_attr
+
+    assert loaded.estimate(), loaded.error
+    assert loaded.diagnostics_current
+    suggested = json_attr(loaded.diagnostics, "delay")
+    prepared = loaded.prepared
+    assert loaded.set_override(delay=7), loaded.error
+    chosen = json_attr(loaded.diagnostics, "delay")
+    assert chosen["samples"] == 7 and chosen["suggested"]["samples"] == suggested["samples"]
+    assert loaded.prepared is prepared and loaded.diagnostics_current
+    assert loaded.set_override(delay=None)
+    assert json_attr(loaded.diagnostics, "delay")["samples"] == suggested["samples"]
+    # a preparation change recomputes the preparation and, as they existed, the diagnostics
+    assert loaded.change_settings(detrend="linear")
+    assert loaded.prepared is not prepared and loaded.diagnostics_current
+
+
+def test_bundle_of_estimates_only(loaded):
+    assert loaded.estimate()
+    data = loaded.bundle_bytes()
+    with zipfile.ZipFile(io.BytesIO(data)) as zf:
+        names = set(zf.namelist())
+    assert {"manifest.json", "recording.nc", "diagnostics.nc", "settings.json", "summary.json"} <= names
+    assert loaded.bundle_filename == "lorenz-lagspace.zip"
+
+
+def test_background_work_touches_parameters_only_on_the_event_loop(lorenz):
+    s = SessionState()
+    threads = set()
+    s.param.watch(lambda e: threads.add(threading.current_thread().name), ["raw", "busy", "message", "checks"])
+
+    async def go():
+        ok = await s.in_background(s.load_bytes, csv_bytes(lorenz), "lorenz.csv")
+        return ok, s.raw is not None, s.busy  # every update has arrived when the await returns
+
+    assert asyncio.run(go()) == (True, True, False)
+    assert threads == {threading.current_thread().name}

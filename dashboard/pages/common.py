@@ -57,7 +57,7 @@ class StatusBar(pn.viewable.Viewer):
 
     def __init__(self, **params):
         super().__init__(**params)
-        self._bar = pn.indicators.Progress(value=0, max=1000, bar_color="info", sizing_mode="stretch_width",
+        self._bar = pn.indicators.Progress(value=0, max=1000, bar_color="primary", sizing_mode="stretch_width",
                                            height=16, margin=(8, 10))
         self._cancel = pn.widgets.Button(name="Cancel", button_type="warning", width=90, margin=(2, 6))
         self._cancel.on_click(lambda event: self.state.cancel())

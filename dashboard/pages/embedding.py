@@ -157,7 +157,7 @@ class EmbeddingPage(pn.viewable.Viewer):
                    card("False nearest neighbours and Cao's test", self._dim_curves, sizing_mode="stretch_width"),
                    sizing_mode="stretch_width"),
             pn.Row(card("Delay plot", self._delay_plot, sizing_mode="stretch_width"),
-                   card("3-D view", self._view3d, pn.Row(self._turn, self._tilt), sizing_mode="stretch_width"),
+                   card("3-D view (turn and tilt it with the sliders)", self._view3d, pn.Row(self._turn, self._tilt), sizing_mode="stretch_width"),
                    sizing_mode="stretch_width"),
             card("The same plot at other delays: too short a delay squeezes the cloud onto the diagonal, "
                  "too long a delay smears it", self._multiples, sizing_mode="stretch_width"),

@@ -16,8 +16,8 @@ from .. import figures
 from ..state import SessionState
 from .common import card, esc, number, run
 
-KIND_WORDS = {"iaaft": "IAAFT: same spectrum and values (best)", "aaft": "AAFT: amplitude-adjusted",
-              "ft": "FT: same spectrum, Gaussian values"}
+KIND_WORDS = {"iaaft": "IAAFT (spectrum and values kept)", "aaft": "AAFT (amplitude adjusted)",
+              "ft": "FT (spectrum kept, Gaussian)"}
 STATISTIC_WORDS = {"prediction_error": "nonlinear prediction error", "time_asymmetry": "time asymmetry"}
 
 
@@ -60,10 +60,11 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
             rows.append(("  … maximum-likelihood estimate", v, u, "(no unit)", ml.get("reason") or "Takens' estimator"))
     k2 = summary.get("correlation_entropy")
     if k2 is not None:
-        key = "per_time_unit" if k2.get("per_time_unit") is not None else "value"
-        v, u = _pm(k2, key)
-        rows.append(("Correlation entropy K2", v, u, f"per {unit}" if key == "per_time_unit" else "",
-                     k2.get("reason") or ""))
+        v, u = _pm(k2, "per_time_unit")
+        rows.append(("Correlation entropy K2", v, u, f"per {unit}", k2.get("reason") or ""))
+        if unit != "sample" and k2.get("per_sample") is not None:
+            v, u = _pm(k2, "per_sample", "uncertainty_per_sample")
+            rows.append(("  … per sample", v, u, "per sample", ""))
     cap = summary.get("capacity_dimension")
     if cap is not None:
         v, u = _pm(cap)
@@ -76,8 +77,12 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
         if fit:
             how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how}" if how else "")
         rows.append(("Largest Lyapunov exponent", v, u, f"per {unit}", how))
-        v, u = _pm(lle, "per_sample", "uncertainty_per_sample")
-        rows.append(("  … per sample", v, u, "per sample", ""))
+        if unit != "sample" and lle.get("per_sample") is not None:
+            v, u = _pm(lle, "per_sample", "uncertainty_per_sample")
+            rows.append(("  … per sample", v, u, "per sample", ""))
+        if lle.get("lyapunov_time") is not None:
+            rows.append(("  … Lyapunov time (1 / exponent)", number(lle["lyapunov_time"]), "", unit,
+                         "time for a small error to grow by a factor e"))
         kantz = lle.get("kantz")
         if kantz:
             v, u = _pm(kantz, "per_time_unit")
@@ -114,24 +119,25 @@ class InvariantsPage(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         st = self.state.settings
-        self._surrogates = pn.widgets.IntInput(name="Surrogates (19 for a one-sided test, 39 two-sided)",
-                                               value=st.surrogates, start=0, end=999, width=300,
+        self._surrogates = pn.widgets.IntInput(name="Surrogates (19: one-sided test, 39: two-sided)",
+                                               value=st.surrogates, start=0, end=999, width=260,
                                                css_classes=["surrogate-count"])
-        self._kind = pn.widgets.Select(name="Surrogate kind", value=st.surrogate_kind, width=300,
+        self._kind = pn.widgets.Select(name="Surrogate kind", value=st.surrogate_kind, width=260,
                                        options={KIND_WORDS.get(k, k): k for k in SURROGATE_KINDS})
-        self._statistic = pn.widgets.Select(name="Test statistic", value=st.surrogate_statistic, width=250,
+        self._statistic = pn.widgets.Select(name="Test statistic", value=st.surrogate_statistic, width=260,
                                             options={STATISTIC_WORDS.get(k, k): k for k in SURROGATE_STATISTICS})
-        self._seed = pn.widgets.IntInput(name="Seed (for every random choice)", value=st.seed, start=0, width=220)
+        self._seed = pn.widgets.IntInput(name="Seed (for every random choice)", value=st.seed, start=0, width=260)
         self._run = pn.widgets.Button(name="Run the analysis", button_type="primary", width=200, height=40,
                                       css_classes=["run-analysis"])
         self._run.on_click(self._on_run)
         self._intro = pn.pane.HTML(sizing_mode="stretch_width")
-        self._verdict = pn.pane.Alert("", alert_type="info", visible=False, sizing_mode="stretch_width")
+        self._verdict = pn.pane.Alert("", alert_type="info", sizing_mode="stretch_width")
         self._table = pn.pane.HTML(sizing_mode="stretch_width")
         self._warnings = pn.pane.HTML(sizing_mode="stretch_width")
         self._plots = {name: pn.pane.HoloViews(sizing_mode="stretch_width") for name in
                        ("slopes", "sums", "divergence", "boxes", "surrogates", "recurrence")}
         self._streams = []
+        self._results_area = pn.Column(sizing_mode="stretch_width", visible=False)
         self.state.param.watch(self._show, ["analysis", "settings", "busy", "prepared"])
         self._show()
 
@@ -171,14 +177,14 @@ class InvariantsPage(pn.viewable.Viewer):
         else:
             self._intro.object = ("<p>Select a range on the local-slope or divergence plot (drag with the "
                                   "range tool) to refit the estimate over that range.</p>")
+        self._results_area.visible = a is not None and a.results is not None
         if a is None or a.results is None:
-            self._verdict.visible = False
             self._table.object = self._warnings.object = ""
             for pane in self._plots.values():
                 pane.object = None
             return
         summary = a.summary
-        self._verdict.param.update(object=esc(summary.get("verdict", "")), visible=True)
+        self._verdict.object = esc(summary.get("verdict", ""))
         self._table.object = results_table_html(summary)
         warnings = summary.get("warnings") or []
         self._warnings.object = ("<ul class='warnings'>" + "".join(f"<li>{esc(w)}</li>" for w in warnings)
@@ -204,9 +210,7 @@ class InvariantsPage(pn.viewable.Viewer):
         options = card("Surrogate test", pn.Row(self._surrogates, self._kind), pn.Row(self._statistic, self._seed),
                        sizing_mode="stretch_width")
         p = self._plots
-        return pn.Column(
-            pn.Row(pn.Column(self._intro, self._run, sizing_mode="stretch_width"), options,
-                   sizing_mode="stretch_width"),
+        self._results_area.objects = [
             self._verdict,
             card("Results", self._table, sizing_mode="stretch_width"),
             card("Warnings", self._warnings, sizing_mode="stretch_width"),
@@ -216,5 +220,10 @@ class InvariantsPage(pn.viewable.Viewer):
                    card("Box counting", p["boxes"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
             pn.Row(card("Surrogate test", p["surrogates"], sizing_mode="stretch_width"),
                    card("Recurrence plot", p["recurrence"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
+        ]
+        return pn.Column(
+            pn.Row(pn.Column(self._intro, self._run, sizing_mode="stretch_width"), options,
+                   sizing_mode="stretch_width"),
+            self._results_area,
             pn.pane.Alert(CAUTION, alert_type="warning", sizing_mode="stretch_width"),
             sizing_mode="stretch_width")
