@@ -349,6 +349,13 @@ def _estimates(div_ds, embedding_dimension, fit_range, sampling_interval, time_u
         main["kantz"] = found[1]
         main["comparison"] = _compare(found[0], found[1], str(time_unit))
         main["warnings"] = found[0]["warnings"] + found[1]["warnings"]
+        a, b = found[0]["per_time_unit"], found[1]["per_time_unit"]
+        if a is not None and b is not None:
+            # Two accepted estimators that differ say how well the method itself knows the
+            # exponent: their difference joins the headline uncertainty.
+            main["uncertainty_parts"] = dict(main["uncertainty_parts"], between_methods=abs(a - b))
+            main["uncertainty"] = float(np.hypot(main["uncertainty"], a - b))
+            main["reason"] += " The difference from the Kantz estimate is added to the uncertainty."
     return main
 
 
@@ -365,8 +372,9 @@ def largest_lyapunov(div_ds: xr.Dataset, embedding_dimension, sampling_interval=
     -------
     dict: "value" (= "per_time_unit"), "per_sample", "per_time_unit",
     "uncertainty" (per time unit: fit standard error, spread over the
-    neighbouring dimensions and over the two halves of the range, combined
-    in quadrature; broken down in "uncertainty_parts"), "fit_range" (steps),
+    neighbouring dimensions and over the two halves of the range, and, with
+    both curves, the difference between the two methods, combined in
+    quadrature; broken down in "uncertainty_parts"), "fit_range" (steps),
     "fit_range_time", "lyapunov_time" (1/exponent, null unless clearly positive),
     "growth_over_range" (ln of the separation's growth over the fit range),
     "method", "reason", "dimensions_used", "warnings", "units". Values are

@@ -92,9 +92,7 @@ def summarise(prepared: xr.Dataset, diagnostics: xr.Dataset, results: Optional[x
         out["correlation_dimension"] = d2
         out["correlation_entropy"] = estimates.get("correlation_entropy")
         out["capacity_dimension"] = estimates.get("capacity_dimension")
-        lle = dict(estimates.get("largest_lyapunov_exponent", {}))
-        lle["kantz"] = estimates.get("largest_lyapunov_exponent_kantz")
-        out["largest_lyapunov_exponent"] = lle
+        out["largest_lyapunov_exponent"] = estimates.get("largest_lyapunov_exponent")
         out["surrogate_test"] = estimates.get("surrogate_test")
         out["recurrence"] = estimates.get("recurrence")
     out["warnings"] = _warnings(prepared, diagnostics, estimates)
