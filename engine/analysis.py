@@ -125,6 +125,15 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     estimates["recurrence"] = json_attr(rq, "recurrence")
     parts.append(rq)
 
+    refs = int(cs.attrs.get("reference_points", 0))
+    estimates["subsampling"] = {
+        "correlation_sum_reference_points": refs or None,
+        "correlation_sum_pairs": int(cs.attrs.get("n_pairs", 0)),
+        "correlation_sum_note": (f"pairs from {refs} seeded reference vectors against all {cs.attrs.get('n_vectors')}"
+                                 if refs else "all pairs outside the Theiler window"),
+        "surrogate_test_samples": (estimates["surrogate_test"] or {}).get("samples_used"),
+        "recurrence_points": (estimates.get("recurrence") or {}).get("points_used"),
+    }
     results = xr.merge([_plain(p) for p in parts], join="outer", combine_attrs="override")
     results.attrs = {key: json.dumps(value) for key, value in estimates.items()}
     results.attrs["delay"] = tau

@@ -95,6 +95,7 @@ def summarise(prepared: xr.Dataset, diagnostics: xr.Dataset, results: Optional[x
         out["largest_lyapunov_exponent"] = estimates.get("largest_lyapunov_exponent")
         out["surrogate_test"] = estimates.get("surrogate_test")
         out["recurrence"] = estimates.get("recurrence")
+        out["subsampling"] = estimates.get("subsampling")
     out["warnings"] = _warnings(prepared, diagnostics, estimates)
     out["verdict"] = verdict(out)
     out["caution"] = CAUTION
