@@ -66,41 +66,36 @@ def _false_neighbours(analysis):
     return draw
 
 
-def _local_slopes(analysis):
-    r = analysis.results
-    d2 = analysis.summary.get("correlation_dimension") or {}
+def _curves_per_dimension(results, variable, x, span, span_label, labels, log_x=False):
+    """One curve of ``variable`` per embedding dimension, with a shaded fit range."""
 
     def draw(ax):
-        for m in r["dimension"].values:
-            s = r["local_slope"].sel(dimension=m)
-            if np.isfinite(s).any():
-                ax.semilogx(r["radius"], s, lw=0.8, color="#2f5d62", alpha=0.4 + 0.6 * m / r["dimension"].max().item())
-        if d2.get("scaling_range"):
-            ax.axvspan(*d2["scaling_range"], color="#c8553d", alpha=0.15, label="scaling range")
+        top = results["dimension"].max().item()
+        for m in results["dimension"].values:
+            curve = results[variable].sel(dimension=m)
+            if np.isfinite(curve).any():
+                ax.plot(results[x], curve, lw=0.8, color="#2f5d62", alpha=0.4 + 0.6 * m / top)
+        if log_x:
+            ax.set_xscale("log")
+        if span:
+            ax.axvspan(*span, color="#c8553d", alpha=0.15, label=span_label)
             ax.legend(fontsize=7)
-        ax.set_xlabel("radius r")
-        ax.set_ylabel("d ln C / d ln r")
-        ax.set_title("Local slopes of the correlation sum")
+        ax.set_xlabel(labels[0])
+        ax.set_ylabel(labels[1])
+        ax.set_title(labels[2])
     return draw
+
+
+def _local_slopes(analysis):
+    d2 = analysis.summary.get("correlation_dimension") or {}
+    return _curves_per_dimension(analysis.results, "local_slope", "radius", d2.get("scaling_range"), "scaling range",
+                                 ("radius r", "d ln C / d ln r", "Local slopes of the correlation sum"), log_x=True)
 
 
 def _divergence(analysis):
-    r = analysis.results
-    m = analysis.summary["embedding_dimension"]["value"]
     lle = analysis.summary.get("largest_lyapunov_exponent") or {}
-
-    def draw(ax):
-        for dim in r["dimension"].values:
-            curve = r["divergence"].sel(dimension=dim)
-            if np.isfinite(curve).any():
-                ax.plot(r["step"], curve, lw=1.2 if dim == m else 0.6, color="#2f5d62")
-        if lle.get("fit_range"):
-            ax.axvspan(*lle["fit_range"], color="#c8553d", alpha=0.15, label="fit range")
-            ax.legend(fontsize=7)
-        ax.set_xlabel("steps [samples]")
-        ax.set_ylabel("mean ln divergence")
-        ax.set_title("Divergence of nearest neighbours")
-    return draw
+    return _curves_per_dimension(analysis.results, "divergence", "step", lle.get("fit_range"), "fit range",
+                                 ("steps [samples]", "mean ln divergence", "Divergence of nearest neighbours"))
 
 
 def _surrogates(analysis):
