@@ -52,6 +52,7 @@ def build_app(demo_path: Path | str | None = None) -> pn.template.BootstrapTempl
         title="lagspace", sidebar=[BundleTools(state=state), pn.pane.HTML(HELP, margin=(16, 10))],
         main=[StatusBar(state=state), tabs], header_background=style.INK, sidebar_width=290,
     )
+    template.session_state = state  # for tests and debugging
     if demo_path is not None:
         path = Path(demo_path)
 

@@ -9,6 +9,7 @@ peak visible) and turning a 3-D delay view for the screen.
 from __future__ import annotations
 
 import json
+import textwrap
 
 import holoviews as hv
 import numpy as np
@@ -97,6 +98,7 @@ def _fmt(value, digits: int = 3) -> str:
 
 def _note(text: str) -> hv.Text:
     """A placeholder panel that says why there is nothing to draw."""
+    text = "\n".join(textwrap.fill(line, 60) for line in str(text).splitlines())
     return hv.Text(0.5, 0.5, text).opts(xaxis=None, yaxis=None, toolbar=None, responsive=True, height=200,
                                         color=style.SLATE, show_frame=False)
 
@@ -116,9 +118,9 @@ def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = 
     """Power spectrum (log power) with the dominant period marked at frequency 1 / period."""
     if spec is None or "power" not in spec:
         if dominant and dominant.get("time"):
-            return _note(f"dominant period {_fmt(dominant['time'])} {unit} "
-                         f"({_fmt(dominant.get('strength'), 2)} of the power in its peak)")
-        return _note("spectrum: not available")
+            return _note(f"dominant period {_fmt(dominant['time'])} {unit}\n"
+                         f"({100 * (dominant.get('strength') or 0):.0f} % of the power in its peak)")
+        return _note(dominant.get("reason", "no dominant period") if dominant else "no spectrum yet")
     freq_dim = spec["power"].dims[0]
     f = spec[freq_dim].values
     p = spec["power"].values
@@ -169,7 +171,7 @@ def dimension_curves(diag: xr.Dataset) -> hv.Layout:
                    vdims=[hv.Dimension("fnn", label=_var_label(diag, "false_nearest_fraction"))]).opts(
         color=style.INK, line_width=2, tools=["hover"], **style.PLOT)
     fnn = hv.Overlay([fnn, hv.Scatter(fnn.data).opts(color=style.INK, size=6), *mark]).opts(
-        title=f"false nearest neighbours — chosen dimension {dim}")
+        title=f"false nearest neighbours — chosen dimension {dim}", ylabel="fraction of false neighbours")
     cao = [hv.Curve((diag["dimension"].values, diag[v].values), kdims=[kd],
                     vdims=[hv.Dimension("cao", label="Cao's E1 and E2")], label=label).opts(
         color=colour, line_width=2, tools=["hover"], **style.PLOT)
@@ -193,7 +195,7 @@ def delay_plot(rec: xr.Dataset, delay: int, max_points: int = MAX_CLOUD_POINTS) 
     kx, ky = _pair_axes(rec, delay)
     return hv.Path([v[:max_points]], kdims=[kx, ky]).opts(
         color=style.INK, line_width=0.8, alpha=0.9, responsive=True, height=360,
-        title=f"delay plot, delay {delay} samples{shown}", show_grid=True, toolbar="above")
+        title=f"delay plot, delay {delay} samples{shown}", show_grid=True, toolbar="right")
 
 
 def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: float = 20.0,
@@ -204,8 +206,8 @@ def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: 
     p = project(np.asarray(v[thin_indices(v.shape[0], max_points)]), azimuth, elevation)
     reach = float(np.sqrt((p ** 2).sum(axis=1)).max()) * 1.05 or 1.0   # same frame at every angle
     pts = hv.Points((p[:, 0], p[:, 1], -p[:, 2]), kdims=["across", "up"], vdims=["nearness"])
-    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, frame_width=330,
-                    frame_height=330, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
+    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, responsive=True,
+                    aspect=1, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
                     toolbar=None, title=f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)")
 
 
@@ -272,8 +274,8 @@ def local_slopes(results: xr.Dataset, summary: dict):
     if d2.get("value") is not None:
         parts.append(hv.HLine(d2["value"]).opts(color=style.CLAY, line_dash="dashed", line_width=1.5))
     title = f"D2 = {_pm(d2)}" if d2.get("value") is not None else "no correlation dimension (see the table)"
-    return hv.Overlay(parts).opts(title=title, legend_position="right", show_legend=True,
-                                  xlabel=radius.label, ylabel="local slope d ln C / d ln r")
+    return hv.Overlay(parts).opts(title=title, legend_position="right", show_legend=True, xlabel=radius.label,
+                                  ylabel="local slope d ln C / d ln r", active_tools=["xbox_select"])
 
 
 def correlation_sums(results: xr.Dataset, summary: dict):
@@ -309,7 +311,7 @@ def divergence(results: xr.Dataset, summary: dict):
     title = (f"largest exponent {_pm(lle, 'per_time_unit')} per {unit}" if lle.get("per_time_unit") is not None
              else "no exponent (see the table)")
     return hv.Overlay(parts).opts(title=title, legend_position="right", xlabel=step.label,
-                                  ylabel="mean ln distance of neighbours")
+                                  ylabel="mean ln distance of neighbours", active_tools=["xbox_select"])
 
 
 def box_counting(results: xr.Dataset, summary: dict):
@@ -370,8 +372,8 @@ def recurrence_plot(results: xr.Dataset, pixels: int = 400):
                    kdims=[hv.Dimension("j", label="delay vector j"), hv.Dimension("i", label="delay vector i")],
                    vdims=[hv.Dimension("density", label="fraction recurrent")])
     rate = facts.get("recurrence_rate")
-    return img.opts(cmap=["#ffffff", style.INK], frame_width=380, frame_height=380, colorbar=False,
-                    tools=["hover"], toolbar="above",
+    return img.opts(cmap=["#ffffff", style.INK], responsive=True, aspect=1, colorbar=False,
+                    tools=["hover"], toolbar="right",
                     title=f"{n:,} vectors, radius {_fmt(facts.get('radius'))}, rate {_fmt(rate, 2)}")
 
 

@@ -377,7 +377,9 @@ class SessionState(param.Parameterized):
             else:
                 result = analysis_mod.run_standard_analysis(self.raw, settings, progress=progress, cancel=cancel)
             self._keys.update(diagnostics=_key(settings, 2), analysis=_key(settings, 3))
-            self._apply(analysis=result, diagnostics=result.diagnostics,
+            if result.diagnostics is not self.diagnostics:
+                self._apply(diagnostics=result.diagnostics)
+            self._apply(analysis=result,
                               message="Analysis done. Read the verdict and the cautions before using the numbers.")
 
         return self._run("Running the analysis", work)

@@ -12,7 +12,7 @@ ALERT = "#a23b2a"      # refusals and errors
 DIMENSION_RAMP = ["#b7cfdc", "#9bbdd0", "#7faac2", "#6497b3", "#4b84a3", "#357190",
                   "#255e7c", "#1b4c66", "#133b50", "#0c2b3b"]
 
-PLOT = dict(responsive=True, height=280, toolbar="above", fontscale=1.0, show_grid=True)
+PLOT = dict(responsive=True, height=280, toolbar="right", fontscale=1.0, show_grid=True)
 
 
 def dimension_colour(i: int, n: int) -> str:

@@ -235,3 +235,63 @@ def test_background_work_touches_parameters_only_on_the_event_loop(lorenz):
 
     assert asyncio.run(go()) == (True, True, False)
     assert threads == {threading.current_thread().name}
+
+
+@pytest.fixture(scope="module")
+def analysed(lorenz):
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(lorenz), "lorenz.csv")
+    assert s.change_settings(surrogates=19, recurrence_max_points=800)
+    assert s.estimate(), s.error
+    diagnostics = s.diagnostics
+    assert s.run_analysis(), s.error
+    assert s.analysis.diagnostics is diagnostics  # the current delay and dimension were reused
+    return s
+
+
+def test_analysis_is_current_until_a_setting_changes(analysed):
+    assert analysed.analysis_current and analysed.summary["surrogate_test"]["surrogates"] == 19
+    analysis = analysed.analysis
+    analysed.change_settings(seed=5)
+    assert not analysed.analysis_current and analysed.analysis is analysis  # kept until the next Run
+    analysed.change_settings(seed=0)
+    assert analysed.analysis_current
+
+
+def test_bundle_reopens_with_the_same_summary(analysed):
+    # The reproducibility contract: a bundle read back gives exactly the summary it was made from.
+    data = analysed.bundle_bytes()
+    fresh = SessionState()
+    assert fresh.open_bundle(data, "lorenz-lagspace.zip"), fresh.error
+    assert fresh.summary == analysed.summary
+    assert fresh.settings == analysed.settings and fresh.analysis_current
+    assert np.array_equal(signal(fresh.prepared), signal(analysed.prepared))
+
+
+def test_bad_bundle_keeps_the_session(analysed):
+    analysis = analysed.analysis
+    assert not analysed.open_bundle(b"PK\x03\x04 broken", "broken.zip")
+    assert analysed.error and "\n" not in analysed.error and analysed.analysis is analysis
+
+
+def test_refit_uses_the_chosen_range(analysed):
+    fresh = SessionState()
+    fresh.open_bundle(analysed.bundle_bytes(), "b.zip")
+    radii = fresh.analysis.results["radius"].values
+    lo, hi = float(radii[8]), float(radii[16])
+    steps = fresh.analysis.results["step"].values
+    assert fresh.refit(scaling_range=(lo, hi), divergence_range=(int(steps[5]), int(steps[40]))), fresh.error
+    fit = fresh.summary["largest_lyapunov_exponent"]["fit_range"]
+    assert fit[0] >= steps[5] and fit[1] <= steps[40]
+    rng = fresh.summary["correlation_dimension"]["scaling_range"]
+    assert rng is None or (rng[0] >= lo * (1 - 1e-9) and rng[1] <= hi * (1 + 1e-9))
+
+
+def test_cancel_stops_the_analysis_and_keeps_the_old_one(analysed):
+    fresh = SessionState()
+    fresh.open_bundle(analysed.bundle_bytes(), "b.zip")
+    before = fresh.analysis
+    fresh.change_settings(seed=1)
+    fresh.param.watch(lambda e: fresh.cancel() if e.new > 0.3 else None, "progress")
+    assert not fresh.run_analysis()
+    assert "cancelled" in fresh.message and fresh.analysis is before and not fresh.busy

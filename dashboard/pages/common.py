@@ -59,7 +59,7 @@ class StatusBar(pn.viewable.Viewer):
         super().__init__(**params)
         self._bar = pn.indicators.Progress(value=0, max=1000, bar_color="primary", sizing_mode="stretch_width",
                                            height=16, margin=(8, 10))
-        self._cancel = pn.widgets.Button(name="Cancel", button_type="warning", width=90, margin=(2, 6))
+        self._cancel = pn.widgets.Button(label="Cancel", color="warning", width=90, margin=(2, 6))
         self._cancel.on_click(lambda event: self.state.cancel())
         self._busy_row = pn.Row(self._bar, self._cancel, visible=False, sizing_mode="stretch_width")
         self._line = pn.pane.HTML("", sizing_mode="stretch_width", margin=(0, 10), css_classes=["status-line"])
@@ -87,7 +87,7 @@ class BundleTools(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         self._download = pn.widgets.FileDownload(callback=self._bundle, filename="lagspace.zip",
-                                                 label="Download bundle", button_type="primary",
+                                                 label="Download bundle", color="primary",
                                                  sizing_mode="stretch_width", disabled=True,
                                                  css_classes=["download-bundle"])
         self._open = pn.widgets.FileInput(accept=".zip", multiple=False, sizing_mode="stretch_width",

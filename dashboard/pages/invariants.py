@@ -119,15 +119,15 @@ class InvariantsPage(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         st = self.state.settings
-        self._surrogates = pn.widgets.IntInput(name="Surrogates (19: one-sided test, 39: two-sided)",
+        self._surrogates = pn.widgets.IntInput(label="Surrogates (19: one-sided test, 39: two-sided)",
                                                value=st.surrogates, start=0, end=999, width=260,
                                                css_classes=["surrogate-count"])
-        self._kind = pn.widgets.Select(name="Surrogate kind", value=st.surrogate_kind, width=260,
+        self._kind = pn.widgets.Select(label="Surrogate kind", value=st.surrogate_kind, width=260,
                                        options={KIND_WORDS.get(k, k): k for k in SURROGATE_KINDS})
-        self._statistic = pn.widgets.Select(name="Test statistic", value=st.surrogate_statistic, width=260,
+        self._statistic = pn.widgets.Select(label="Test statistic", value=st.surrogate_statistic, width=260,
                                             options={STATISTIC_WORDS.get(k, k): k for k in SURROGATE_STATISTICS})
-        self._seed = pn.widgets.IntInput(name="Seed (for every random choice)", value=st.seed, start=0, width=260)
-        self._run = pn.widgets.Button(name="Run the analysis", button_type="primary", width=200, height=40,
+        self._seed = pn.widgets.IntInput(label="Seed (for every random choice)", value=st.seed, start=0, width=260)
+        self._run = pn.widgets.Button(label="Run the analysis", color="primary", width=200, height=40,
                                       css_classes=["run-analysis"])
         self._run.on_click(self._on_run)
         self._intro = pn.pane.HTML(sizing_mode="stretch_width")
@@ -147,16 +147,14 @@ class InvariantsPage(pn.viewable.Viewer):
         if await run(self.state, self.state.change_settings, **changes):
             await run(self.state, self.state.run_analysis)
 
-    async def _refit(self, **ranges):
-        await run(self.state, self.state.refit, **ranges)
-
     def _on_bounds(self, kind: str, boundsx=None, **_):
         if boundsx is None or None in boundsx or boundsx[0] == boundsx[1]:
             return
         lo, hi = sorted(boundsx)
         ranges = ({"scaling_range": (float(lo), float(hi))} if kind == "slopes"
                   else {"divergence_range": (int(round(lo)), int(round(hi)))})
-        pn.state.execute(partial(self._refit, **ranges))
+        # After the selection event is done (a refit only re-fits stored curves: quick enough here).
+        pn.state.execute(partial(self.state.refit, **ranges), schedule=True)
 
     def _show(self, *events):
         s = self.state
@@ -175,8 +173,9 @@ class InvariantsPage(pn.viewable.Viewer):
             self._intro.object = ("<p class='warning-text'>The settings changed since these results were "
                                   "computed: press Run again to bring them up to date.</p>")
         else:
-            self._intro.object = ("<p>Select a range on the local-slope or divergence plot (drag with the "
-                                  "range tool) to refit the estimate over that range.</p>")
+            self._intro.object = ("<p>To refit an estimate over a range of your own, drag across that range "
+                                  "on the local-slope or divergence plot (the range-select tool is active there; "
+                                  "the table and the shading follow).</p>")
         self._results_area.visible = a is not None and a.results is not None
         if a is None or a.results is None:
             self._table.object = self._warnings.object = ""

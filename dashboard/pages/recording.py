@@ -41,39 +41,39 @@ class RecordingPage(pn.viewable.Viewer):
         self._dropper.param.watch(self._on_drop, "value")
         self._seen: set = set()
         demos = {p.name: str(p) for p in demo_files()}
-        self._demo = pn.widgets.Select(name="Demo recordings", options=demos, sizing_mode="stretch_width",
+        self._demo = pn.widgets.Select(label="Demo recordings", options=demos, sizing_mode="stretch_width",
                                        disabled=not demos)
-        self._demo_button = pn.widgets.Button(name="Open demo", button_type="default", disabled=not demos,
+        self._demo_button = pn.widgets.Button(label="Open demo", color="default", disabled=not demos,
                                               width=110, align="end")
         self._demo_button.on_click(self._on_demo)
 
         # questions for ambiguous files
-        self._variable = pn.widgets.Select(name="Variable to analyse", sizing_mode="stretch_width")
-        self._time_column = pn.widgets.Select(name="Time column", sizing_mode="stretch_width")
-        self._interval = pn.widgets.FloatInput(name="Sampling interval (s), if there is no time column",
+        self._variable = pn.widgets.Select(label="Variable to analyse", sizing_mode="stretch_width")
+        self._time_column = pn.widgets.Select(label="Time column", sizing_mode="stretch_width")
+        self._interval = pn.widgets.FloatInput(label="Sampling interval (s), if there is no time column",
                                                value=None, start=0, sizing_mode="stretch_width")
-        self._choose = pn.widgets.Button(name="Load this variable", button_type="primary", width=180)
+        self._choose = pn.widgets.Button(label="Load this variable", color="primary", width=180)
         self._choose.on_click(self._on_choose)
         self._questions = card("This file needs a choice", self._variable, self._time_column, self._interval,
                                self._choose, visible=False, sizing_mode="stretch_width")
 
         # preparation
         st = s.settings
-        self._detrend = pn.widgets.RadioButtonGroup(name="Remove", options={"nothing": "none", "the mean": "mean",
+        self._detrend = pn.widgets.RadioButtonGroup(label="Remove", options={"nothing": "none", "the mean": "mean",
                                                                              "a straight line": "linear"},
-                                                    value=st.detrend, button_type="default")
-        self._crop_start = pn.widgets.FloatInput(name="Keep from (time)", value=None, sizing_mode="stretch_width")
-        self._crop_stop = pn.widgets.FloatInput(name="Keep until (time)", value=None, sizing_mode="stretch_width")
-        self._standardise = pn.widgets.Checkbox(name="Scale to unit variance", value=st.standardise)
-        self._set_interval = pn.widgets.FloatInput(name="Sampling interval (s)", value=None, start=0,
+                                                    value=st.detrend, color="default")
+        self._crop_start = pn.widgets.FloatInput(label="Keep from (time)", value=None, sizing_mode="stretch_width")
+        self._crop_stop = pn.widgets.FloatInput(label="Keep until (time)", value=None, sizing_mode="stretch_width")
+        self._standardise = pn.widgets.Checkbox(label="Scale to unit variance", value=st.standardise)
+        self._set_interval = pn.widgets.FloatInput(label="Sampling interval (s)", value=None, start=0,
                                                    sizing_mode="stretch_width")
-        self._apply = pn.widgets.Button(name="Apply preparation", button_type="primary", width=170)
+        self._apply = pn.widgets.Button(label="Apply preparation", color="primary", width=170)
         self._apply.on_click(self._on_apply)
 
         self._summary = pn.pane.HTML(sizing_mode="stretch_width")
         self._checks = pn.Column(sizing_mode="stretch_width")
         self._series = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
-        self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
+        self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=200)
         s.param.watch(self._show_pending, "pending")
         s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings", "busy"])
         s.param.watch(self._show_spectrum, ["diagnostics", "prepared"])
@@ -144,6 +144,8 @@ class RecordingPage(pn.viewable.Viewer):
             self._series.object = None
             return
         self._summary.object = self._summary_html(rec)
+        if s.source_name in self._demo.options:
+            self._demo.value = self._demo.options[s.source_name]
         st = s.settings
         self._detrend.value, self._standardise.value = st.detrend, st.standardise
         self._crop_start.value, self._crop_stop.value = st.crop_start, st.crop_stop
@@ -188,7 +190,7 @@ class RecordingPage(pn.viewable.Viewer):
                 text += f"<br><small><b>Fix:</b> {esc(finding['fix'])}</small>"
             row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6), css_classes=["check-finding"])]
             if self.state.fix_changes(finding):
-                button = pn.widgets.Button(name="Apply fix", button_type="primary", width=110, align="center")
+                button = pn.widgets.Button(label="Apply fix", color="primary", width=110, align="center")
                 button.on_click(lambda event, f=finding: self._on_fix(f))
                 row.append(button)
             rows.append(pn.Row(*row, sizing_mode="stretch_width"))
@@ -208,6 +210,7 @@ class RecordingPage(pn.viewable.Viewer):
             pn.Row(card("What was loaded", self._summary, sizing_mode="stretch_width"), prep,
                    sizing_mode="stretch_width"),
             card("Checks", self._checks, sizing_mode="stretch_width"),
-            pn.Row(self._series, self._spectrum, sizing_mode="stretch_width"),
+            pn.Row(card("Time series", self._series, sizing_mode="stretch_width"),
+                   card("Spectrum", self._spectrum, width=460), sizing_mode="stretch_width"),
             sizing_mode="stretch_width")
 

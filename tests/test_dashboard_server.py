@@ -1,0 +1,89 @@
+"""The server's guards and the session builder, without a browser."""
+
+import socket
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from pathlib import Path
+
+import pytest
+
+from engine.errors import LagspaceError
+
+from dashboard import server
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def test_non_local_address_needs_a_password():
+    with pytest.raises(LagspaceError, match="password"):
+        server.serve(address="0.0.0.0", port=0)
+
+
+def test_short_or_missing_password_file_is_refused(tmp_path):
+    short = tmp_path / "pw"
+    short.write_text("abc\n")
+    with pytest.raises(LagspaceError, match="shorter than 8"):
+        server.serve(address="0.0.0.0", port=0, password_file=short)
+    with pytest.raises(LagspaceError, match="cannot read"):
+        server.serve(port=0, password_file=tmp_path / "missing")
+
+
+def test_bad_port_is_refused():
+    with pytest.raises(LagspaceError, match="port"):
+        server.serve(port=70000)
+
+
+def test_loopback_addresses_are_local():
+    assert server._is_local("127.0.0.1") and server._is_local("localhost") and server._is_local("::1")
+    assert not server._is_local("0.0.0.0") and not server._is_local("192.168.1.20")
+
+
+def test_demo_files_are_recordings_shipped_with_the_package():
+    files = server.demo_files()
+    assert all(p.parent == ROOT / "demo_data" and p.suffix in server.DEMO_SUFFIXES for p in files)
+    if files:
+        assert server.default_demo() in files
+
+
+def test_each_session_gets_its_own_state():
+    from dashboard.app import build_app
+
+    a, b = build_app(), build_app()
+    assert list(a.main[1]._names) == ["1 · Recording", "2 · Delay & dimension", "3 · Invariants"]
+    assert a.session_state is not b.session_state
+    a.session_state.change_settings(surrogates=19)
+    assert b.session_state.settings.surrogates != 19
+
+
+def _free_port():
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_password_file_puts_a_login_in_front(tmp_path):
+    pw = tmp_path / "password"
+    pw.write_text("correct horse battery\n")
+    port = _free_port()
+    proc = subprocess.Popen([sys.executable, "-c", f"from dashboard.server import serve; "
+                             f"serve(port={port}, password_file={str(pw)!r})"],
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            try:
+                page = urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=2)
+                break
+            except urllib.error.HTTPError as exc:
+                page = exc
+                break
+            except OSError:
+                assert proc.poll() is None and time.monotonic() < deadline, proc.stdout.read()
+                time.sleep(0.5)
+        assert "/login" in page.geturl() or "password" in page.read().decode().lower()
+    finally:
+        proc.terminate()
+        proc.wait(10)
