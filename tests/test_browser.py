@@ -121,7 +121,19 @@ def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
     assert "per s" in first  # exponents carry their time unit
     assert page.get_by_text("research tool, not a diagnostic").count() >= 1
 
-    # 4. download the bundle and check what it holds
+    # 4. drag across the divergence plot: the exponent is refitted over the chosen steps
+    divergence_card = page.locator(".card", has_text="Divergence of neighbours").first
+    divergence_card.scroll_into_view_if_needed()
+    box = divergence_card.bounding_box()
+    x, y = box["x"] + 0.3 * box["width"], box["y"] + 0.55 * box["height"]
+    page.mouse.move(x, y)
+    page.mouse.down()
+    page.mouse.move(x + 0.2 * box["width"], y, steps=8)
+    page.mouse.up()
+    page.locator("table.results").get_by_text("set by the user").first.wait_for(timeout=60_000)
+    first = _results(page)
+
+    # 5. download the bundle and check what it holds
     with page.expect_download(timeout=60_000) as info:
         page.locator(".download-bundle button").click()
     saved = tmp_path / "bundle.zip"
@@ -130,7 +142,7 @@ def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
         assert BUNDLE_MEMBERS <= set(zf.namelist())
         assert zf.testzip() is None
 
-    # 5. a fresh session opens the bundle and shows the same numbers
+    # 6. a fresh session opens the bundle and shows the same numbers
     fresh, fresh_problems = _open(browser, server)
     fresh.locator("input[type=file][accept='.zip']").set_input_files(str(saved))
     fresh.get_by_text("3 · Invariants").first.click()

@@ -3,6 +3,8 @@ their reasons, the user's overrides, and views of the reconstructed state space.
 
 from __future__ import annotations
 
+import json
+
 import panel as pn
 import param
 
@@ -68,11 +70,14 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._theiler_use.on_click(lambda e: self._override(theiler=self._theiler_in.value))
         self._theiler_back.on_click(lambda e: self._override(theiler=None))
 
-        s.param.watch(self._show, ["diagnostics", "prepared", "busy", "settings"])
+        s.param.watch(self._show, ["diagnostics", "prepared", "settings"])
+        s.param.watch(self._show_busy, ["busy"])
+        self._drawn, self._space_time_key = (None, None), None
         s.param.watch(self._show_space_time, ["analysis"])
         self._turn.param.watch(self._show_view3d, "value_throttled")
         self._tilt.param.watch(self._show_view3d, "value_throttled")
         self._show()
+        self._show_busy()
         self._show_space_time()
 
     # -- callbacks ----------------------------------------------------------------------------------
@@ -88,12 +93,14 @@ class EmbeddingPage(pn.viewable.Viewer):
         diag = self.state.diagnostics
         return None if diag is None else json_attr(diag, "delay", {}).get("samples")
 
+    def _show_busy(self, *events):
+        for w in (self._estimate, self._delay_use, self._delay_back, self._dim_use, self._dim_back,
+                  self._theiler_use, self._theiler_back):
+            w.disabled = self.state.busy
+
     def _show(self, *events):
         s = self.state
         diag, rec = s.diagnostics, s.prepared
-        for w in (self._estimate, self._delay_use, self._delay_back, self._dim_use, self._dim_back,
-                  self._theiler_use, self._theiler_back):
-            w.disabled = s.busy
         if rec is None:
             self._intro.object = "<p>Load a recording on page 1 first.</p>"
         elif diag is None:
@@ -105,10 +112,10 @@ class EmbeddingPage(pn.viewable.Viewer):
             self._intro.object = ("<p>Suggestions come from the curves below; each has its reason. "
                                   "Override them only with a reason of your own.</p>")
         self._estimate.visible = rec is not None and (diag is None or not s.diagnostics_current)
+        for pane in (self._delay_curves, self._dim_curves, self._delay_plot, self._view3d, self._multiples):
+            pane.visible = diag is not None
         if diag is None:
             self._delay_text.object = self._dim_text.object = ""
-            for pane in (self._delay_curves, self._dim_curves, self._delay_plot, self._view3d, self._multiples):
-                pane.object = None
             return
         d = json_attr(diag, "delay", {})
         unit = time_unit(rec) if rec is not None else "sample"
@@ -119,6 +126,9 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._dim_text.object = _reason_html(f"{m.get('value')}", m)
         self._delay_in.placeholder = str(tau)
         self._dim_in.placeholder = str(m.get("value"))
+        if self._drawn[0] is diag and self._drawn[1] is rec:
+            return
+        self._drawn = (diag, rec)
         self._delay_curves.object = figures.delay_curves(diag)
         self._dim_curves.object = figures.dimension_curves(diag)
         if rec is not None and tau:
@@ -133,14 +143,16 @@ class EmbeddingPage(pn.viewable.Viewer):
 
     def _show_space_time(self, *events):
         a = self.state.analysis
+        self._space_time.visible = a is not None and a.results is not None
         if a is None or a.results is None:
-            self._space_time.object = None
             self._space_time_text.object = ("<p>The space-time separation plot and the Theiler window are "
                                             "computed with the invariants: press Run on page 3.</p>")
             return
         w = a.summary.get("theiler_window") or {}
         unit = a.summary.get("input", {}).get("time_unit", "sample")
-        self._space_time.object = figures.space_time(a.results, w.get("samples"))
+        key = (a.settings, json.dumps(a.summary.get("input"), sort_keys=True), w.get("samples"))
+        if key != self._space_time_key:  # refits of other estimates do not redraw this
+            self._space_time.object, self._space_time_key = figures.space_time(a.results, w.get("samples")), key
         value = f"{w.get('samples')} samples" + ("" if unit == "sample" else f" = {with_unit(w.get('time'), unit)}")
         self._space_time_text.object = _reason_html(value, w)
         self._theiler_in.placeholder = str(w.get("samples"))

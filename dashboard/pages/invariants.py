@@ -3,6 +3,7 @@ uncertainties, adjust the fit ranges by selecting them on the plots, read the ca
 
 from __future__ import annotations
 
+import json
 from functools import partial
 
 import holoviews as hv
@@ -136,10 +137,12 @@ class InvariantsPage(pn.viewable.Viewer):
         self._warnings = pn.pane.HTML(sizing_mode="stretch_width")
         self._plots = {name: pn.pane.HoloViews(sizing_mode="stretch_width") for name in
                        ("slopes", "sums", "divergence", "boxes", "surrogates", "recurrence")}
-        self._streams = []
+        self._streams, self._drawn = {}, {}
         self._results_area = pn.Column(sizing_mode="stretch_width", visible=False)
-        self.state.param.watch(self._show, ["analysis", "settings", "busy", "prepared"])
-        self._show()
+        self.state.param.watch(self._show_controls, ["analysis", "settings", "busy", "prepared"])
+        self.state.param.watch(self._show_results, ["analysis"])
+        self._show_controls()
+        self._show_results()
 
     async def _on_run(self, event):
         changes = dict(surrogates=int(self._surrogates.value or 0), surrogate_kind=self._kind.value,
@@ -153,10 +156,9 @@ class InvariantsPage(pn.viewable.Viewer):
         lo, hi = sorted(boundsx)
         ranges = ({"scaling_range": (float(lo), float(hi))} if kind == "slopes"
                   else {"divergence_range": (int(round(lo)), int(round(hi)))})
-        # After the selection event is done (a refit only re-fits stored curves: quick enough here).
-        pn.state.execute(partial(self.state.refit, **ranges), schedule=True)
+        pn.state.add_periodic_callback(partial(self.state.refit, **ranges), period=50, count=1)
 
-    def _show(self, *events):
+    def _show_controls(self, *events):
         s = self.state
         st = s.settings
         self._run.disabled = s.busy or s.prepared is None
@@ -176,34 +178,41 @@ class InvariantsPage(pn.viewable.Viewer):
             self._intro.object = ("<p>To refit an estimate over a range of your own, drag across that range "
                                   "on the local-slope or divergence plot (the range-select tool is active there; "
                                   "the table and the shading follow).</p>")
+
+    def _show_results(self, *events):
+        a = self.state.analysis
         self._results_area.visible = a is not None and a.results is not None
         if a is None or a.results is None:
-            self._table.object = self._warnings.object = ""
-            for pane in self._plots.values():
-                pane.object = None
+            self._drawn = {}
             return
-        summary = a.summary
+        summary, res = a.summary, a.results
         self._verdict.object = esc(summary.get("verdict", ""))
         self._table.object = results_table_html(summary)
         warnings = summary.get("warnings") or []
         self._warnings.object = ("<ul class='warnings'>" + "".join(f"<li>{esc(w)}</li>" for w in warnings)
                                  + "</ul>") if warnings else "<p>No warnings.</p>"
-        res = a.results
-        slopes = figures.local_slopes(res, summary)
-        divergence = figures.divergence(res, summary)
-        self._streams = []
-        for kind, fig in (("slopes", slopes), ("divergence", divergence)):
-            source = figures.selectable(fig)
-            if source is not None:
-                stream = hv.streams.BoundsX(source=source)
-                stream.add_subscriber(lambda kind=kind, **kw: self._on_bounds(kind, **kw))
-                self._streams.append(stream)
-        self._plots["slopes"].object = slopes
-        self._plots["sums"].object = figures.correlation_sums(res, summary)
-        self._plots["divergence"].object = divergence
-        self._plots["boxes"].object = figures.box_counting(res, summary)
-        self._plots["surrogates"].object = figures.surrogate_histogram(res, summary)
-        self._plots["recurrence"].object = figures.recurrence_plot(res)
+        builders = {
+            "slopes": (("correlation_dimension", "embedding_dimension"), figures.local_slopes),
+            "sums": (("correlation_dimension", "embedding_dimension"), figures.correlation_sums),
+            "divergence": (("largest_lyapunov_exponent", "embedding_dimension"), figures.divergence),
+            "boxes": (("capacity_dimension",), figures.box_counting),
+            "surrogates": (("surrogate_test",), figures.surrogate_histogram),
+            "recurrence": (("recurrence",), lambda r, _: figures.recurrence_plot(r)),
+        }
+        base = (a.settings.to_json(), json.dumps(summary.get("input"), sort_keys=True))
+        for name, (parts, build) in builders.items():
+            key = base + tuple(json.dumps(summary.get(p), sort_keys=True) for p in parts)
+            if self._drawn.get(name) == key:
+                continue  # a refit of one estimate redraws only the figures that show it
+            fig = build(res, summary)
+            if name in ("slopes", "divergence"):
+                source = figures.selectable(fig)
+                if source is not None:
+                    stream = hv.streams.BoundsX(source=source)
+                    stream.add_subscriber(lambda kind=name, **kw: self._on_bounds(kind, **kw))
+                    self._streams[name] = stream
+            self._plots[name].object = fig
+            self._drawn[name] = key
 
     def __panel__(self):
         options = card("Surrogate test", pn.Row(self._surrogates, self._kind), pn.Row(self._statistic, self._seed),

@@ -75,9 +75,12 @@ class RecordingPage(pn.viewable.Viewer):
         self._series = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
         self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=200)
         s.param.watch(self._show_pending, "pending")
-        s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings", "busy"])
+        s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings"])
+        s.param.watch(self._show_busy, ["busy"])
+        self._drawn = None
         s.param.watch(self._show_spectrum, ["diagnostics", "prepared"])
         self._show_pending()
+        self._show_busy()
         self._show_recording()
         self._show_spectrum()
 
@@ -131,17 +134,19 @@ class RecordingPage(pn.viewable.Viewer):
         self._time_column.value = (p.get("time_columns") or [NO_TIME])[0]
         self._time_column.visible = bool(p.get("time_columns"))
 
+    def _show_busy(self, *events):
+        busy = self.state.busy
+        for w in (self._apply, self._demo_button, self._choose):
+            w.disabled = busy or (w is self._demo_button and not self._demo.options)
+
     def _show_recording(self, *events):
         s = self.state
         rec = s.prepared if s.prepared is not None else s.raw
-        busy = s.busy
-        for w in (self._apply, self._demo_button, self._choose):
-            w.disabled = busy or (w is self._demo_button and not self._demo.options)
+        self._series.visible = rec is not None
         if rec is None:
             self._summary.object = (f"<p style='color:{style.SLATE}'>No recording yet. Drop a file above "
                                     "(CSV, TSV, TXT, NetCDF, .npy or .wav) or open a demo.</p>")
             self._checks.objects = []
-            self._series.object = None
             return
         self._summary.object = self._summary_html(rec)
         if s.source_name in self._demo.options:
@@ -152,11 +157,14 @@ class RecordingPage(pn.viewable.Viewer):
         self._set_interval.visible = time_unit(s.raw) in ("sample", "unknown") or st.sampling_interval is not None
         self._set_interval.value = st.sampling_interval
         self._checks.objects = self._check_rows(s.checks)
-        self._series.object = figures.time_series(rec)
+        if rec is not self._drawn:
+            self._series.object, self._drawn = figures.time_series(rec), rec
 
     def _show_spectrum(self, *events):
         rec = self.state.prepared
-        self._spectrum.object = None if rec is None else figures.spectrum(*self.state.spectrum(), unit=time_unit(rec))
+        self._spectrum.visible = rec is not None
+        if rec is not None:
+            self._spectrum.object = figures.spectrum(*self.state.spectrum(), unit=time_unit(rec))
 
     def _summary_html(self, rec) -> str:
         s = self.state
