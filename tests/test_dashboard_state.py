@@ -295,3 +295,17 @@ def test_cancel_stops_the_analysis_and_keeps_the_old_one(analysed):
     fresh.param.watch(lambda e: fresh.cancel() if e.new > 0.3 else None, "progress")
     assert not fresh.run_analysis()
     assert "cancelled" in fresh.message and fresh.analysis is before and not fresh.busy
+
+
+def test_two_sessions_work_at_the_same_time():
+    # Each job waits until the other has started: this finishes only if they run side by side.
+    barrier = threading.Barrier(2, timeout=10)
+    a, b = SessionState(), SessionState()
+
+    def job(progress, cancel):
+        barrier.wait()
+
+    async def go():
+        return await asyncio.gather(a.in_background(a._run, "A", job), b.in_background(b._run, "B", job))
+
+    assert asyncio.run(go()) == [True, True]

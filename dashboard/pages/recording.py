@@ -15,6 +15,7 @@ from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_rea
 
 ACCEPTED = [".csv", ".tsv", ".txt", ".nc", ".npy", ".wav"]
 NO_TIME = "(none: evenly sampled)"
+FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Fill the short gaps"}
 STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "short gaps interpolated",
               "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
               "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
@@ -54,6 +55,7 @@ class RecordingPage(pn.viewable.Viewer):
                                                value=None, start=0, sizing_mode="stretch_width")
         self._choose = pn.widgets.Button(label="Load this variable", color="primary", width=180)
         self._choose.on_click(self._on_choose)
+        self._time_column.param.watch(self._show_interval_question, "value")
         self._questions = card("This file needs a choice", self._variable, self._time_column, self._interval,
                                self._choose, visible=False, sizing_mode="stretch_width")
 
@@ -71,9 +73,14 @@ class RecordingPage(pn.viewable.Viewer):
         self._apply.on_click(self._on_apply)
 
         self._summary = pn.pane.HTML(sizing_mode="stretch_width")
+        self._loaded = pn.Column(sizing_mode="stretch_width", visible=False)
+        self._empty = pn.pane.HTML(f"<p style='color:{style.SLATE}; margin-left: 8px'>No recording yet. Drop a "
+                                   "file above or open a demo; what was loaded, its checks and its plots "
+                                   "appear here.</p>", sizing_mode="stretch_width")
         self._checks = pn.Column(sizing_mode="stretch_width")
         self._series = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
         self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=200)
+        self._spectrum_card = card("Spectrum", self._spectrum, width=460)
         s.param.watch(self._show_pending, "pending")
         s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings"])
         s.param.watch(self._show_busy, ["busy"])
@@ -133,6 +140,10 @@ class RecordingPage(pn.viewable.Viewer):
         self._time_column.options = [NO_TIME] + list(p.get("time_columns", []))
         self._time_column.value = (p.get("time_columns") or [NO_TIME])[0]
         self._time_column.visible = bool(p.get("time_columns"))
+        self._show_interval_question()
+
+    def _show_interval_question(self, *events):
+        self._interval.visible = self._time_column.value in (None, NO_TIME)
 
     def _show_busy(self, *events):
         busy = self.state.busy
@@ -142,11 +153,8 @@ class RecordingPage(pn.viewable.Viewer):
     def _show_recording(self, *events):
         s = self.state
         rec = s.prepared if s.prepared is not None else s.raw
-        self._series.visible = rec is not None
+        self._loaded.visible, self._empty.visible = rec is not None, rec is None
         if rec is None:
-            self._summary.object = (f"<p style='color:{style.SLATE}'>No recording yet. Drop a file above "
-                                    "(CSV, TSV, TXT, NetCDF, .npy or .wav) or open a demo.</p>")
-            self._checks.objects = []
             return
         self._summary.object = self._summary_html(rec)
         if s.source_name in self._demo.options:
@@ -162,7 +170,7 @@ class RecordingPage(pn.viewable.Viewer):
 
     def _show_spectrum(self, *events):
         rec = self.state.prepared
-        self._spectrum.visible = rec is not None
+        self._spectrum_card.visible = rec is not None
         if rec is not None:
             self._spectrum.object = figures.spectrum(*self.state.spectrum(), unit=time_unit(rec))
 
@@ -198,7 +206,8 @@ class RecordingPage(pn.viewable.Viewer):
                 text += f"<br><small><b>Fix:</b> {esc(finding['fix'])}</small>"
             row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6), css_classes=["check-finding"])]
             if self.state.fix_changes(finding):
-                button = pn.widgets.Button(label="Apply fix", color="primary", width=110, align="center")
+                words = " and ".join(FIX_WORDS.get(k, k.replace("_", " ")) for k in self.state.fix_changes(finding))
+                button = pn.widgets.Button(label=words, color="primary", width=200, align="center")
                 button.on_click(lambda event, f=finding: self._on_fix(f))
                 row.append(button)
             rows.append(pn.Row(*row, sizing_mode="stretch_width"))
@@ -213,12 +222,12 @@ class RecordingPage(pn.viewable.Viewer):
         prep = card("Preparation", pn.pane.HTML("<small>Remove before analysis:</small>", margin=(0, 6)),
                     self._detrend, pn.Row(self._crop_start, self._crop_stop), self._standardise,
                     self._set_interval, self._apply, sizing_mode="stretch_width")
-        return pn.Column(
-            pn.Row(load, self._questions, sizing_mode="stretch_width"),
+        self._loaded.objects = [
             pn.Row(card("What was loaded", self._summary, sizing_mode="stretch_width"), prep,
                    sizing_mode="stretch_width"),
             card("Checks", self._checks, sizing_mode="stretch_width"),
-            pn.Row(card("Time series", self._series, sizing_mode="stretch_width"),
-                   card("Spectrum", self._spectrum, width=460), sizing_mode="stretch_width"),
-            sizing_mode="stretch_width")
-
+            pn.Row(card("Time series", self._series, sizing_mode="stretch_width"), self._spectrum_card,
+                   sizing_mode="stretch_width"),
+        ]
+        return pn.Column(pn.Row(load, self._questions, sizing_mode="stretch_width"), self._empty, self._loaded,
+                         sizing_mode="stretch_width")
