@@ -16,7 +16,7 @@ import numpy as np
 import xarray as xr
 
 from engine.embedding import delay_vectors
-from engine.recording import json_attr, sampling_interval, signal, time_unit, variable_name
+from engine.recording import signal, time_unit, variable_name
 
 from . import style
 

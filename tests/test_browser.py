@@ -4,7 +4,6 @@ The server runs in a subprocess on a free port. Skips only when Chromium is miss
 ``CI`` environment variable is not set (in CI a missing browser is a failure).
 """
 
-import io
 import os
 import socket
 import subprocess

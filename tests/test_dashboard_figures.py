@@ -107,7 +107,10 @@ def test_recurrence_image_is_the_symmetric_recurrence_matrix():
     offset = np.abs(np.subtract.outer(np.arange(200), np.arange(200)))
     expected = (cdist(v, v, "chebyshev") <= radius) & (offset > 1)
     img = figures.recurrence_plot(ds, pixels=400)
-    shown = np.array([[img[j + 0.5, i + 0.5] for j in range(200)] for i in range(200)])
+    values = img.dimension_values(2, flat=False)                    # rows as stored, with their y centres
+    ys, xs = img.dimension_values(1, expanded=False), img.dimension_values(0, expanded=False)
+    shown = values[np.argsort(ys)][:, np.argsort(xs)]                # row i = vector i, column j = vector j
+    assert img[12.5, 40.5] == shown[40, 12]                          # spot check through holoviews indexing
     assert np.array_equal(shown > 0, expected)
     assert hv.render(img) is not None
 

@@ -10,7 +10,7 @@ import param
 
 from engine.recording import json_attr, time_unit
 
-from .. import figures, style
+from .. import figures
 from ..state import SessionState
 from .common import card, esc, estimate_if_ready, run, with_unit
 

@@ -11,7 +11,7 @@ from engine.recording import json_attr, sampling_interval, time_unit, variable_n
 from .. import figures, style
 from ..server import demo_files
 from ..state import SessionState
-from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, number, run, with_unit
+from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run, with_unit
 
 ACCEPTED = [".csv", ".tsv", ".txt", ".nc", ".npy", ".wav"]
 NO_TIME = "(none: evenly sampled)"
@@ -162,6 +162,9 @@ class RecordingPage(pn.viewable.Viewer):
         st = s.settings
         self._detrend.value, self._standardise.value = st.detrend, st.standardise
         self._crop_start.value, self._crop_stop.value = st.crop_start, st.crop_stop
+        unit = time_unit(rec)
+        unit = "sample number" if unit in ("sample", "unknown") else unit
+        self._crop_start.label, self._crop_stop.label = f"Keep from ({unit})", f"Keep until ({unit})"
         self._set_interval.visible = time_unit(s.raw) in ("sample", "unknown") or st.sampling_interval is not None
         self._set_interval.value = st.sampling_interval
         self._checks.objects = self._check_rows(s.checks)
