@@ -10,7 +10,7 @@ References
 ----------
 Grassberger & Procaccia, Physica D 9 (1983) 189 (correlation sum, D2).
 Grassberger & Procaccia, Phys. Rev. A 28 (1983) 2591 (K2 from C_m / C_{m+1}).
-Takens, in Dynamical Systems and Bifurcations, Lecture Notes in Mathematics 1125
+Takens, in Dynamical Systems and Bifurcations (Braaksma et al., eds.), Springer
 (1985) 99 (maximum-likelihood D2).
 Theiler, Phys. Rev. A 34 (1986) 2427 (Theiler window).
 Eckmann & Ruelle, Physica D 56 (1992) 185 (largest credible D2 ~ 2 log10 N).
@@ -310,7 +310,7 @@ def takens_estimator(cs_ds, embedding_dimension, r_max) -> dict:
 
     References
     ----------
-    Takens, in Dynamical Systems and Bifurcations, Lecture Notes in Mathematics 1125 (1985) 99.
+    Takens, in Dynamical Systems and Bifurcations (Braaksma et al., eds.), Springer (1985) 99.
     Theiler, J. Opt. Soc. Am. A 7 (1990) 1055.
     """
     m0 = _check_sums(cs_ds, embedding_dimension)

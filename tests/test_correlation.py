@@ -52,7 +52,7 @@ def test_lorenz_correlation_dimension():
     assert d2["value"] == pytest.approx(2.05, abs=0.15)
     assert d2["saturates"] is True
     assert d2["uncertainty"] < 0.15
-    # source: Takens, Lecture Notes in Math. 1125 (1985): the ML estimate measures the same D2
+    # source: Takens, Dynamical Systems and Bifurcations, Springer (1985) 99: the ML estimate measures the same D2
     ml = takens_estimator(ds, 4, d2["scaling_range"][1])
     assert ml["value"] == pytest.approx(2.05, abs=0.15)
 
