@@ -1,4 +1,4 @@
-"""Choosing the delay: autocorrelation, average mutual information, dominant period.
+"""Choosing the delay: autocorrelation, average mutual information, power spectrum, dominant period.
 
 References
 ----------
@@ -19,8 +19,11 @@ import scipy.fft
 from scipy import signal as sps
 
 from .arguments import as_series, positive_number, whole_number
+from .correlation import series_units
 from .errors import LagspaceError
 from .kernels.delay import lagged_mutual_information
+from .recording import sampling_interval as recording_interval
+from .recording import time_unit as recording_time_unit
 
 MAX_BINS = 128
 STRONG_PEAK = 0.5  # fraction of power in the spectral peak above which a period counts as strong
@@ -137,36 +140,83 @@ def mutual_information(x, max_lag: int, bins: int | None = None) -> xr.Dataset:
     )
 
 
-def dominant_period(x, sampling_interval: float = 1.0) -> dict:
-    """Period of the highest peak of the Welch power spectrum, and its strength.
+def _segment_length(n: int) -> int:
+    """Welch segment: a power of two near min(N / 8, 8 sqrt(N)), from 64 to N samples.
 
-    Segments of about N/8 samples (a power of two, 64 to N) with a Hann window;
-    the peak frequency is refined by a parabola through the log power of the peak
-    bin and its neighbours. ``strength`` is the fraction of the power (zero
-    frequency left out) within +-2 bins of the peak: about 1 for a sine, small
-    for broadband signals. A peak in the lowest two frequency bins is not a
-    resolved period (red spectra peak there): then ``samples`` is null with a reason.
+    At least about 15 half-overlapping segments are averaged, and their number
+    grows as sqrt(N), so a long record gives a smooth estimate while the
+    resolution still improves with length.
+    """
+    return int(min(n, 2 ** max(6, round(math.log2(min(n / 8.0, 8.0 * math.sqrt(n)))))))
+
+
+def _squared(units: str) -> str:
+    return units if units == "1" else (f"({units})^2" if " " in units else f"{units}^2")
+
+
+def power_spectrum(x, sampling_interval: float | None = None) -> xr.Dataset:
+    """One-sided power spectral density by Welch's averaged periodogram.
+
+    Hann-windowed segments of :func:`_segment_length` samples with 50 % overlap,
+    each with its mean removed, scaled as a density (``scipy.signal.welch``,
+    ``scaling="density"``), so the integral of ``power`` over ``frequency`` is
+    the variance of the series. ``x`` is a Recording or a 1-D array; the
+    interval defaults to the Recording's (1 for an array). ``power`` is in
+    (signal units)^2 per (1 / time unit), ``frequency`` in 1 / time unit
+    (cycles, not radians); an array has units "1" and time unit "sample"
+    (or "time unit" for another interval).
 
     References
     ----------
     Welch, IEEE Trans. Audio Electroacoust. 15 (1967) 70.
     """
-    x = as_series(x)
+    values, units = as_series(x), series_units(x)
+    if sampling_interval is None:
+        sampling_interval = recording_interval(x) if isinstance(x, xr.Dataset) else 1.0
     dt = positive_number("sampling_interval", sampling_interval)
-    nperseg = int(min(x.size, 2 ** max(6, round(math.log2(x.size / 8.0)))))
-    freq, power = sps.welch(x, nperseg=nperseg)
+    unit = recording_time_unit(x) if isinstance(x, xr.Dataset) else ("sample" if dt == 1.0 else "time unit")
+    segment = _segment_length(values.size)
+    freq, power = sps.welch(values, fs=1.0 / dt, nperseg=segment)
+    per_frequency = f"{_squared(units)} per 1/{unit}"
+    return xr.Dataset(
+        {"power": ("frequency", power, {"units": per_frequency,
+                                        "long_name": "power spectral density (one-sided, Welch)"})},
+        coords={"frequency": ("frequency", freq, {"units": f"1/{unit}", "long_name": "frequency"})},
+        attrs={"segment": segment, "segments": int((values.size - segment) // (segment // 2) + 1),
+               "window": "hann", "overlap": 0.5, "sampling_interval": dt, "time_unit": unit},
+    )
+
+
+def dominant_period(x, sampling_interval: float | None = None) -> dict:
+    """Period of the highest peak of the Welch power spectrum, and its strength.
+
+    ``x`` is a series (its spectrum is computed by :func:`power_spectrum`) or
+    the dataset :func:`power_spectrum` returned. The peak frequency is refined
+    by a parabola through the log power of the peak bin and its neighbours.
+    ``strength`` is the fraction of the power (zero frequency left out) within
+    +-2 bins of the peak: about 1 for a sine, small for broadband signals. A
+    peak in the lowest two frequency bins is not a resolved period (red spectra
+    peak there): then ``samples`` is null with a reason.
+
+    References
+    ----------
+    Welch, IEEE Trans. Audio Electroacoust. 15 (1967) 70.
+    """
+    spectrum = x if isinstance(x, xr.Dataset) and "power" in x else power_spectrum(x, sampling_interval)
+    freq, power = spectrum["frequency"].values, spectrum["power"].values
+    dt = float(spectrum.attrs["sampling_interval"])
     k = 1 + int(np.argmax(power[1:]))
     strength = float(power[max(1, k - 2) : k + 3].sum() / power[1:].sum())
     if k < 3:
         return {"samples": None, "time": None, "strength": strength,
                 "reason": f"the spectrum is largest at the lowest frequencies: no period shorter than a third "
-                          f"of the {nperseg}-sample Welch segment stands out"}
+                          f"of the {spectrum.attrs['segment']}-sample Welch segment stands out"}
     offset = 0.0
     if k < power.size - 1 and np.all(power[k - 1 : k + 2] > 0):
         a, b, c = np.log(power[k - 1 : k + 2])
         offset = 0.5 * (a - c) / (a - 2 * b + c) if a - 2 * b + c < 0 else 0.0
-    samples = 1.0 / ((k + offset) * freq[1])
-    return {"samples": float(samples), "time": float(samples * dt), "strength": strength}
+    period = 1.0 / ((k + offset) * freq[1])
+    return {"samples": float(period / dt), "time": float(period), "strength": strength}
 
 
 def period_warning(delay: int, period: float, strength: float) -> str | None:

@@ -14,10 +14,12 @@ from engine.delay import (
     equiprobable_bins,
     mutual_information,
     period_warning,
+    power_spectrum,
     suggest_delay,
 )
 from engine.errors import LagspaceError
 from engine.kernels.delay import lagged_mutual_information, lagged_mutual_information_reference
+from engine.recording import make_recording
 
 
 def suggestion(x, max_lag=60):
@@ -135,6 +137,55 @@ def test_white_noise_has_no_strong_period():
     assert dom["strength"] < 0.05
 
 
+def test_power_spectrum_of_a_sine_peaks_at_its_frequency():
+    dt, period = 0.01, 25.0  # seconds per sample, samples per cycle
+    x = 3.0 * systems.sine(6000, period)
+    rec = make_recording(x, units="K", time_unit="s", sampling_interval=dt)
+    spec = power_spectrum(rec)
+    f = spec["frequency"].values
+    # Analytic: a sine of period P samples at interval dt has all its power at f0 = 1 / (P dt) = 4 Hz;
+    # the peak bin lies within one bin width of it.
+    f_peak = f[np.argmax(spec["power"].values)]
+    assert abs(f_peak - 1.0 / (period * dt)) <= f[1]
+    assert spec["frequency"].attrs["units"] == "1/s"
+    assert spec["power"].attrs["units"] == "K^2 per 1/s"
+    assert {"units", "long_name"} <= set(spec["power"].attrs) and "long_name" in spec["frequency"].attrs
+    # The same spectrum gives the dominant period (analytic: 25 samples = 0.25 s).
+    dom = dominant_period(spec)
+    assert dom == dominant_period(x, sampling_interval=dt)
+    assert dom["samples"] == pytest.approx(period, rel=0.01) and dom["time"] == pytest.approx(0.25, rel=0.01)
+
+
+def test_power_spectrum_of_white_noise_is_flat_at_twice_variance_times_interval():
+    sigma, dt = 2.0, 0.5
+    x = sigma * systems.white_noise(2**15, seed=11)
+    spec = power_spectrum(x, sampling_interval=dt)
+    p = spec["power"].values[1:-1]  # the zero and Nyquist bins carry half weight in a one-sided density
+    # Analytic: white noise of variance s^2 sampled every dt has the one-sided density 2 s^2 dt,
+    # flat in frequency; Welch's average of K segments scatters each bin by about 1/sqrt(K).
+    assert p.mean() == pytest.approx(2 * sigma**2 * dt, rel=0.05)
+    low, high = np.array_split(p, 2)
+    assert low.mean() / high.mean() == pytest.approx(1.0, abs=0.05)
+    assert spec["power"].attrs["units"] == "1 per 1/time unit" and spec["frequency"].attrs["units"] == "1/time unit"
+
+
+@pytest.mark.parametrize("x", [systems.ar1(8192, 0.9, seed=2), systems.lorenz(8000)])
+def test_power_spectrum_integrates_to_the_variance(x):
+    # Parseval with scipy.signal.welch's documented density scaling: the one-sided PSD integrated over
+    # frequency is the mean square of each (mean-removed, windowed) segment, i.e. the variance of a
+    # stationary series, up to the scatter between segments.
+    dt = 0.02
+    spec = power_spectrum(x, sampling_interval=dt)
+    integral = np.trapezoid(spec["power"].values, spec["frequency"].values)
+    assert integral == pytest.approx(np.var(x), rel=0.1)
+
+
+def test_long_records_average_more_segments():
+    # Welch (1967): averaging K segments cuts the variance of each bin by K; the segment count grows with N.
+    short, long = (power_spectrum(systems.white_noise(n, seed=3)).attrs["segments"] for n in (4096, 2**20))
+    assert short >= 15 and long > 8 * short
+
+
 @pytest.mark.parametrize(
     "call",
     [
@@ -146,6 +197,8 @@ def test_white_noise_has_no_strong_period():
         lambda: mutual_information(np.ones(100), 5),
         lambda: mutual_information(np.arange(100.0), 5, bins=1),
         lambda: dominant_period(np.arange(100.0), sampling_interval=0),
+        lambda: power_spectrum(np.arange(100.0), sampling_interval=-1.0),
+        lambda: power_spectrum(np.ones(100)),
         lambda: suggest_delay(None, None),
     ],
 )
