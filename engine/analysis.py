@@ -12,6 +12,7 @@ Each step is a pure function of (input, settings); the result is an
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Optional
@@ -69,23 +70,25 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
                                     f"{theiler_choice['value']} samples", "suggested": theiler_choice}
     w = int(theiler_choice["value"])
     estimates["theiler_window"] = theiler_choice
+    st["space_time_quantile"].attrs["units"] = correlation.series_units(prepared)
     parts.append(st)
 
     stage("correlation sums", 0.05)
     max_dim = max(settings.max_dimension, m + 2)
+    # The Recording itself, not its samples, so radii and box sizes carry the signal's units.
     cs = correlation.correlation_sums(
-        x, delay=tau, max_dimension=max_dim, theiler=w, n_radii=settings.radii,
+        prepared, delay=tau, max_dimension=max_dim, theiler=w, n_radii=settings.radii,
         reference_points=settings.reference_points, seed=settings.seed,
         progress=stage.callback(0.05, 0.35), cancel=cancel,
     )
-    d2 = correlation.correlation_dimension(cs, m)
+    d2 = correlation.correlation_dimension(cs, m, scaling_range=settings.scaling_range)
     estimates["correlation_dimension"] = d2
     estimates["correlation_dimension_ml"] = correlation.takens_estimator(cs, m, r_max=_upper(d2))
     estimates["correlation_entropy"] = correlation.correlation_entropy(cs, d2.get("scaling_range"), dt, embedding_dimension=m)
     parts.append(cs)
 
     stage("box counting", 0.35)
-    bc = boxcount.box_counts(x, delay=tau, dimension=m)
+    bc = boxcount.box_counts(prepared, delay=tau, dimension=m)
     estimates["capacity_dimension"] = boxcount.capacity_dimension(bc)
     parts.append(bc)
 
@@ -97,7 +100,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
     )
     kantz = lyapunov.divergence_kantz(x, delay=tau, dimensions=dims, theiler=w, steps=_steps(settings, tau, x.size))
     # Both curves in one dataset: the Rosenstein estimate carries the Kantz one and a comparison.
-    estimates["largest_lyapunov_exponent"] = lyapunov.largest_lyapunov(xr.merge([div, kantz]), m, dt, unit)
+    estimates["largest_lyapunov_exponent"] = _lyapunov(xr.merge([div, kantz]), m, settings.divergence_range, dt, unit)
     parts += [div, kantz]
 
     stage("surrogate data test", 0.6)
@@ -153,6 +156,13 @@ def _upper(d2: dict):
     return rng[1] if rng else None
 
 
+def _lyapunov(curves: xr.Dataset, m: int, fit_range, dt: float, unit: str) -> dict:
+    """The largest exponent over the user's fit range, else over the detected one."""
+    if fit_range is None:
+        return lyapunov.largest_lyapunov(curves, m, dt, unit)
+    return lyapunov.fit_divergence(curves, m, tuple(fit_range), dt, unit)
+
+
 def _steps(settings: Settings, tau: int, n: int) -> int:
     """Divergence steps: the user's, else 30 delays, between 30 and min(1000, N/10)."""
     if settings.lyapunov_steps is not None:
@@ -161,35 +171,65 @@ def _steps(settings: Settings, tau: int, n: int) -> int:
 
 
 def run_standard_analysis(recording: xr.Dataset, settings: Settings | None = None,
-                          progress=None, cancel=None) -> Analysis:
-    """Prepare, estimate delay and dimension, compute every invariant, and summarise."""
+                          diagnostics: xr.Dataset | None = None, progress=None, cancel=None) -> Analysis:
+    """Prepare, estimate delay and dimension, compute every invariant, and summarise.
+
+    ``diagnostics``, when given, must be those :func:`engine.diagnostics.estimate`
+    made from the same recording prepared with the same settings; they are used as
+    they are instead of being estimated again (the dashboard has them already).
+    """
     settings = settings or Settings()
+    if diagnostics is not None and not (isinstance(diagnostics, xr.Dataset)
+                                        and {"delay", "embedding_dimension"} <= set(diagnostics.attrs)):
+        raise LagspaceError("diagnostics must be the dataset returned by engine.diagnostics.estimate, or None "
+                            "to estimate them here")
     stage = Stage(progress, cancel)
     prepared = prepare(recording, settings)
-    diagnostics = estimate(prepared, settings, progress=stage.callback(0.0, 0.25), cancel=cancel)
-    results = invariants(prepared, diagnostics, settings, progress=stage.callback(0.25, 1.0), cancel=cancel)
+    start = 0.0
+    if diagnostics is None:
+        diagnostics = estimate(prepared, settings, progress=stage.callback(0.0, 0.25), cancel=cancel)
+        start = 0.25
+    results = invariants(prepared, diagnostics, settings, progress=stage.callback(start, 1.0), cancel=cancel)
     return Analysis(recording, settings, prepared, diagnostics, results,
                     summarise(prepared, diagnostics, results, settings))
 
 
 def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> Analysis:
-    """Recompute the estimates for a user-chosen scaling range and/or divergence fit range."""
+    """Recompute the estimates for a user-chosen scaling range and/or divergence fit range.
+
+    ``None`` keeps the range the analysis has. The returned settings carry the ranges
+    (``Settings.scaling_range``, ``Settings.divergence_range``), so running the analysis
+    again with them, e.g. from its bundle, gives the same Summary.
+    """
     if analysis.results is None:
         raise LagspaceError("run the analysis before adjusting its fit ranges")
+    changes = {k: v for k, v in (("scaling_range", scaling_range), ("divergence_range", _whole_steps(divergence_range)))
+               if v is not None}
+    settings = analysis.settings.replace(**changes)  # validates the ranges
     res = analysis.results.copy()
     res.attrs = dict(analysis.results.attrs)
     m = int(res.attrs["embedding_dimension"])
     dt, unit = sampling_interval(analysis.prepared), time_unit(analysis.prepared)
     if scaling_range is not None:
-        d2 = correlation.correlation_dimension(res, m, scaling_range=tuple(scaling_range))
+        d2 = correlation.correlation_dimension(res, m, scaling_range=settings.scaling_range)
         res.attrs["correlation_dimension"] = json.dumps(d2)
         res.attrs["correlation_dimension_ml"] = json.dumps(correlation.takens_estimator(res, m, r_max=_upper(d2)))
         res.attrs["correlation_entropy"] = json.dumps(correlation.correlation_entropy(res, d2.get("scaling_range"), dt, embedding_dimension=m))
     if divergence_range is not None:
-        fit = lyapunov.fit_divergence(res, m, tuple(divergence_range), dt, unit)
-        res.attrs["largest_lyapunov_exponent"] = json.dumps(fit)
-    summary = summarise(analysis.prepared, analysis.diagnostics, res, analysis.settings)
-    return replace(analysis, results=res, summary=summary)
+        res.attrs["largest_lyapunov_exponent"] = json.dumps(_lyapunov(res, m, settings.divergence_range, dt, unit))
+    summary = summarise(analysis.prepared, analysis.diagnostics, res, settings)
+    return replace(analysis, settings=settings, results=res, summary=summary)
+
+
+def _whole_steps(fit_range):
+    """A dragged range (any numbers) as the whole steps it holds: (ceil(first), floor(last))."""
+    if fit_range is None:
+        return None
+    try:
+        first, last = (float(v) for v in fit_range)
+        return math.ceil(first), math.floor(last)
+    except (TypeError, ValueError, OverflowError):
+        raise LagspaceError(f"divergence_range must be two step numbers (first, last), got {fit_range!r}") from None
 
 
 def analyse_file(path, overrides: dict | None = None, quick: bool = False, progress=None, cancel=None) -> Analysis:

@@ -17,7 +17,7 @@ import numpy as np
 import xarray as xr
 
 from .arguments import as_series, whole_number
-from .correlation import series_units
+from .correlation import series_units, unit_suffix
 from .embedding import check_embedding, embedded_length
 from .errors import LagspaceError
 from .kernels.boxes import box_indices, occupied_boxes
@@ -130,5 +130,6 @@ def capacity_dimension(bc_ds) -> dict:
         value, stderr = np.polyfit(u, y, 1)[0], 0.0
     out.update(value=float(value), uncertainty=max(stderr, float(slope[a:b + 1].std())),
                fit_range=[float(sizes[b]), float(sizes[a])],
-               reason=f"linear over eps = {sizes[b]:.4g}..{sizes[a]:.4g} ({counts[a]}..{counts[b]} boxes)")
+               reason=f"linear over eps = {sizes[b]:.4g}..{sizes[a]:.4g}{unit_suffix(bc_ds, 'box_size')} "
+                      f"({counts[a]}..{counts[b]} boxes)")
     return out

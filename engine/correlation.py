@@ -18,6 +18,8 @@ Eckmann & Ruelle, Physica D 56 (1992) 185 (largest credible D2 ~ 2 log10 N).
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import xarray as xr
 
@@ -42,9 +44,25 @@ SATURATION_TOLERANCE = 0.1
 TOP_RADIUS_FRACTION = 0.25
 
 
+#: the units of a standardised series (mean removed, divided by its standard deviation)
+STANDARDISED_UNITS = "standard deviations"
+
+
 def series_units(x) -> str:
-    """Units of a Recording's samples ("1" for a plain array)."""
-    return str(x[variable_name(x)].attrs.get("units", "1")) if isinstance(x, xr.Dataset) else "1"
+    """Units of a Recording's samples: its variable's, or "standard deviations" once it
+    has been standardised ("1" for a plain array)."""
+    if not isinstance(x, xr.Dataset):
+        return "1"
+    steps = json.loads(x.attrs.get("preparation", "[]"))
+    if any(isinstance(s, dict) and s.get("step") == "standardise" for s in steps):
+        return STANDARDISED_UNITS
+    return str(x[variable_name(x)].attrs.get("units", "1"))
+
+
+def unit_suffix(ds, coordinate: str) -> str:
+    """" K" for a coordinate in kelvin, "" when it has no unit: to follow a number in a sentence."""
+    units = str(ds[coordinate].attrs.get("units", "1"))
+    return "" if units in ("", "1") else f" {units}"
 
 
 def _radii(values, n_radii, n_pairs):
@@ -268,6 +286,7 @@ def correlation_dimension(cs_ds, embedding_dimension, scaling_range=None) -> dic
     limit = float(np.log10(2.0 * _pair_total(cs_ds)))
     out.update(value=value, uncertainty=_spread(block), credible_limit=limit)
     out["reason"] = (f"local slopes of m = {m0}..{top} over r = {radii[a]:.4g}..{radii[b]:.4g}"
+                     f"{unit_suffix(cs_ds, 'radius')}"
                      + ("" if out["saturates"] else "; they still grow with m"))
     if value > limit:
         out["warnings"].append(f"D2 = {value:.2f} exceeds 2 log10 N = {limit:.2f} (Eckmann & Ruelle 1992): "
@@ -336,7 +355,8 @@ def takens_estimator(cs_ds, embedding_dimension, r_max) -> dict:
     value = float(upper.mean())
     statistical = value / np.sqrt(counts[m0 - 1, k_max])
     out.update(value=value, uncertainty=float(np.hypot(statistical, upper.std())),
-               reason=f"pairs closer than r = {radii[k_max]:.4g} at m = {m0}..{csum.shape[0]}")
+               reason=f"pairs closer than r = {radii[k_max]:.4g}{unit_suffix(cs_ds, 'radius')} "
+                      f"at m = {m0}..{csum.shape[0]}")
     return out
 
 
@@ -401,7 +421,8 @@ def correlation_entropy(cs_ds, scaling_range, sampling_interval, embedding_dimen
     out.update(value=value / (tau * dt), per_time_unit=value / (tau * dt), uncertainty=spread / (tau * dt),
                per_sample=value / tau, uncertainty_per_sample=spread / tau,
                settles=bool(abs(rise) < SATURATION_TOLERANCE * value),
-               reason=f"ln(C_m / C_m+1) for m = {m_lo}..{n_dims - 1} over r = {radii[a]:.4g}..{radii[b]:.4g}")
+               reason=f"ln(C_m / C_m+1) for m = {m_lo}..{n_dims - 1} over r = {radii[a]:.4g}..{radii[b]:.4g}"
+                      f"{unit_suffix(cs_ds, 'radius')}")
     if not out["settles"]:
         out["warnings"].append(
             f"K2(m) still changes with m ({per_m[0] / (tau * dt):.3g} at m = {m_lo}, {per_m[-1] / (tau * dt):.3g} "

@@ -46,6 +46,8 @@ class Settings:
     # -- invariants --------------------------------------------------------------
     theiler: Optional[int] = None
     radii: int = 32
+    scaling_range: Optional[tuple[float, float]] = None  # radii (signal units) for D2 and K2; None: detected
+    divergence_range: Optional[tuple[int, int]] = None  # steps (samples) for the Lyapunov fit; None: detected
     reference_points: Optional[int] = 5000
     lyapunov_steps: Optional[int] = None
     surrogates: int = 39
@@ -106,6 +108,7 @@ class Settings:
                 f"surrogate_statistic must be one of {', '.join(SURROGATE_STATISTICS)}, "
                 f"got {self.surrogate_statistic!r}"
             )
+        self._check_ranges(errs)
         if self.dimension is not None and self.dimension > 30:
             errs.append(f"dimension must be at most 30, got {self.dimension}")
         if self.max_dimension > 30:
@@ -118,6 +121,27 @@ class Settings:
             errs.append(f"crop_start ({self.crop_start}) must be before crop_stop ({self.crop_stop})")
         if errs:
             raise LagspaceError("; ".join(errs))
+
+    def _check_ranges(self, errs: list) -> None:
+        """Fit ranges: two numbers, first below last; stored as tuples (JSON gives lists)."""
+        for name, whole in (("scaling_range", False), ("divergence_range", True)):
+            value = getattr(self, name)
+            if value is None:
+                continue
+            what = "two step numbers (first, last), 0 <= first < last <= 100000" if whole else \
+                "two radii (low, high) in the signal's units, 0 < low < high"
+            try:
+                pair = tuple(float(v) for v in value)
+                numeric = all(not isinstance(v, (bool, str)) for v in value)
+            except (TypeError, ValueError):
+                pair, numeric = (), False
+            ok = numeric and len(pair) == 2 and all(v == v and abs(v) != float("inf") for v in pair)
+            ok = ok and (0 <= pair[0] < pair[1] <= 100000 and all(v == int(v) for v in pair) if whole
+                         else 0 < pair[0] < pair[1])
+            if not ok:
+                errs.append(f"{name} must be {what}, or null to detect it; got {value!r}")
+                continue
+            object.__setattr__(self, name, tuple(int(v) for v in pair) if whole else pair)
 
     # -- round trip --------------------------------------------------------------
     def to_dict(self) -> dict:

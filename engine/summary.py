@@ -14,6 +14,7 @@ from typing import Optional
 import xarray as xr
 
 from . import __version__
+from .correlation import series_units
 from .recording import json_attr, sampling_interval, time_unit, variable_name
 from .settings import Settings
 
@@ -41,7 +42,7 @@ def _input(prepared: xr.Dataset) -> dict:
         "file": prepared.attrs.get("source", ""),
         "sha256": prepared.attrs.get("sha256", ""),
         "variable": name,
-        "units": prepared[name].attrs.get("units", "1"),
+        "units": series_units(prepared),
         "samples": int(prepared.sizes["time"]),
         "sampling_interval": sampling_interval(prepared),
         "time_unit": time_unit(prepared),
