@@ -1,14 +1,19 @@
 """Bundles: round trip to the same summary, and refusal of damaged or hostile zips."""
 
+import hashlib
 import io
 import json
+import os
+import subprocess
+import sys
 import zipfile
+from pathlib import Path
 
 import numpy as np
 import pytest
 
 import systems
-from engine.analysis import run_standard_analysis
+from engine.analysis import refit, run_standard_analysis
 from engine.bundle import bundle_bytes, read_bundle, write_bundle
 from engine.errors import BundleError
 from engine.recording import make_recording
@@ -118,3 +123,53 @@ def test_seed_changes_surrogates_only(analysis):
     other = run_standard_analysis(rec, analysis.settings.replace(seed=8))
     assert other.summary["delay"] == analysis.summary["delay"]
     assert np.isfinite(other.summary["surrogate_test"]["p_value"])
+
+
+def _with_settings(data: bytes, settings_json: bytes) -> bytes:
+    """A bundle whose settings.json is replaced, with the manifest's hash made to match."""
+    def change(name, raw):
+        if name == "settings.json":
+            return settings_json
+        if name == "manifest.json":
+            manifest = json.loads(raw)
+            manifest["members"]["settings.json"] = {"sha256": hashlib.sha256(settings_json).hexdigest(),
+                                                    "bytes": len(settings_json)}
+            return json.dumps(manifest).encode()
+        return raw
+    return _rezip(data, change)
+
+
+def test_refit_ranges_survive_bundle_and_full_rerun(analysis, tmp_path):
+    d2 = analysis.summary["correlation_dimension"]
+    (lo, hi), fit = d2["scaling_range"], analysis.summary["largest_lyapunov_exponent"]["fit_range"]
+    # a dragged range: any numbers; the divergence range keeps the whole steps it holds
+    moved = refit(analysis, scaling_range=(lo * 1.01, np.sqrt(lo * hi)), divergence_range=(fit[0] + 0.4, fit[1] - 1.6))
+    assert moved.settings.scaling_range == (lo * 1.01, np.sqrt(lo * hi))
+    assert moved.settings.divergence_range == (int(np.ceil(fit[0] + 0.4)), int(np.floor(fit[1] - 1.6)))
+    assert moved.summary["correlation_dimension"] != d2
+    path = write_bundle(moved, tmp_path / "refit.zip")
+    assert read_bundle(path).settings == moved.settings
+    # The full chain again, as a user would run it: `lagspace analyze refit.zip --json`.
+    repo = Path(__file__).resolve().parents[1]
+    out = subprocess.run([sys.executable, "-m", "engine.cli", "analyze", str(path), "--json"], capture_output=True,
+                         text=True, timeout=600, env={**os.environ, "PYTHONPATH": str(repo)})
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout) == moved.summary
+
+
+def test_bundle_from_before_the_range_settings_still_reads(analysis, data):
+    old = {k: v for k, v in analysis.settings.to_dict().items() if k not in ("scaling_range", "divergence_range")}
+    back = read_bundle(_with_settings(data, json.dumps(old).encode()))
+    assert back.settings == analysis.settings and back.settings.scaling_range is None
+    assert back.summary == analysis.summary
+
+
+def test_given_diagnostics_are_reused_not_recomputed(analysis, monkeypatch):
+    import engine.analysis
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("diagnostics were estimated again")
+
+    monkeypatch.setattr(engine.analysis, "estimate", refuse)
+    again = run_standard_analysis(analysis.recording, analysis.settings, analysis.diagnostics)
+    assert again.summary == analysis.summary and again.diagnostics is analysis.diagnostics

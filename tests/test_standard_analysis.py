@@ -8,6 +8,7 @@ import pytest
 
 import systems
 from engine.analysis import refit, run_standard_analysis
+from engine.errors import LagspaceError
 from engine.recording import make_recording
 from engine.settings import Settings
 
@@ -85,3 +86,37 @@ def test_refit_moves_only_what_depends_on_the_range(henon):
     again = refit(henon, divergence_range=(fit[0], fit[0] + (fit[1] - fit[0]) / 2))
     assert again.summary["largest_lyapunov_exponent"]["fit_range"][1] < fit[1]
     assert again.summary["correlation_dimension"] == d2
+
+
+def test_radii_and_box_sizes_carry_the_signal_units():
+    # Radii, box edges and distances between delay vectors are lengths in the signal's space:
+    # kelvin for a temperature, standard deviations once the series is standardised (common practice).
+    x = 20.0 + 3.0 * systems.henon(2000)
+    rec = make_recording(x, units="K", source="henon")
+    runs = {flag: run_standard_analysis(rec, Settings(surrogates=0, max_dimension=5, standardise=flag))
+            for flag in (False, True)}
+    for flag, units in ((False, "K"), (True, "standard deviations")):
+        a = runs[flag]
+        for name in ("radius", "box_size", "space_time_quantile"):
+            assert a.results[name].attrs["units"] == units, name
+        assert a.summary["input"]["units"] == units
+        assert a.summary["correlation_dimension"]["reason"].endswith(f" {units}")
+    # Analytic: dividing a series by its standard deviation divides every length by it.
+    ratio = runs[False].results["radius"].values / runs[True].results["radius"].values
+    assert ratio == pytest.approx(np.full(ratio.size, x.std()), rel=1e-9)
+
+
+@pytest.mark.parametrize("changes", [dict(scaling_range=(1.0, 0.5)), dict(scaling_range=(0.0, 1.0)),
+                                     dict(scaling_range=(0.1, float("nan"))), dict(scaling_range="0.1,1"),
+                                     dict(divergence_range=(2.5, 10)), dict(divergence_range=(10, 10)),
+                                     dict(divergence_range=(-1, 10)), dict(divergence_range=(1, 2, 3))])
+def test_bad_fit_ranges_are_one_line_errors(changes):
+    with pytest.raises(LagspaceError) as err:
+        Settings(**changes)
+    assert "\n" not in str(err.value) and next(iter(changes)) in str(err.value)
+
+
+def test_fit_ranges_round_trip_through_json_as_tuples():
+    s = Settings(scaling_range=[0.1, 2], divergence_range=[3.0, 40])
+    assert s.scaling_range == (0.1, 2.0) and s.divergence_range == (3, 40)
+    assert Settings.from_json(s.to_json()) == s
