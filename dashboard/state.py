@@ -52,7 +52,7 @@ DIAGNOSTICS = ("delay", "dimension", "max_delay", "max_dimension", "mi_bins", "f
                "fnn_threshold", "cao_threshold", "theiler")
 INVARIANTS = ("radii", "reference_points", "lyapunov_steps", "surrogates",
               "surrogate_max_samples", "surrogate_kind", "surrogate_statistic", "recurrence_rate",
-              "recurrence_max_points", "min_line", "seed")
+              "recurrence_max_points", "min_line", "seed", "scaling_range", "divergence_range")
 STAGES = ("input", "preparation", "diagnostics", "invariants")
 
 
@@ -391,7 +391,8 @@ class SessionState(param.Parameterized):
             if self.analysis is None or self.analysis.results is None:
                 raise LagspaceError("run the analysis before adjusting its fit ranges")
             new = analysis_mod.refit(self.analysis, scaling_range=scaling_range, divergence_range=divergence_range)
-            self._apply(analysis=new, message="Estimates refitted over the range you chose.")
+            self._keys["analysis"] = _key(new.settings, 3)  # the chosen ranges are settings now
+            self._apply(analysis=new, settings=new.settings, message="Estimates refitted over the range you chose.")
 
         return self._run("Refitting", work)
 
