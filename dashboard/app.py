@@ -11,7 +11,7 @@ from .pages.common import BundleTools, StatusBar, estimate_if_ready, run
 from .pages.embedding import EmbeddingPage
 from .pages.invariants import InvariantsPage
 from .pages.recording import RecordingPage
-from .state import SessionState
+from .state import DEFAULT_LIMITS, SessionState
 
 CSS = f"""
 :root {{ --design-primary-color: {style.INK}; --design-primary-text-color: #ffffff;
@@ -43,9 +43,13 @@ Download the bundle to keep the data, settings and results together; a colleague
 see the same numbers.</div>"""
 
 
-def build_app(demo_path: Path | str | None = None) -> pn.template.BootstrapTemplate:
-    """The whole dashboard for one browser session (``demo_path``: a recording to open at start)."""
-    state = SessionState()
+def build_app(demo_path: Path | str | None = None, limits: dict | None = None) -> pn.template.BootstrapTemplate:
+    """The whole dashboard for one browser session.
+
+    ``demo_path``: a recording to open at start; ``limits``: ``{"max_bytes", "max_samples"}`` for
+    what the session may load (default: :data:`dashboard.state.DEFAULT_LIMITS`).
+    """
+    state = SessionState(limits=dict(limits or DEFAULT_LIMITS))
     pages = [RecordingPage(state=state), EmbeddingPage(state=state), InvariantsPage(state=state)]
     tabs = pn.Tabs(*[(p.title, p) for p in pages], sizing_mode="stretch_width")
     template = pn.template.BootstrapTemplate(

@@ -14,6 +14,8 @@ from pathlib import Path
 from engine.errors import LagspaceError
 from engine.warmup import warm_up_in_background
 
+from .state import check_limits
+
 log = logging.getLogger(__name__)
 
 DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_data"
@@ -60,8 +62,22 @@ def _origins(address: str, port: int) -> list[str]:
     return sorted({f"localhost:{port}", f"127.0.0.1:{port}", f"{address}:{port}"})
 
 
+def _limits(max_upload_mb, max_samples) -> dict:
+    """The session limits from the serve options (positive numbers, else one line saying so)."""
+    try:
+        mb = float(max_upload_mb)
+    except (TypeError, ValueError):
+        mb = float("nan")
+    if isinstance(max_upload_mb, bool) or not 0 < mb < 1e6:
+        raise LagspaceError(f"--max-upload-mb must be a positive number of megabytes (e.g. 200), got {max_upload_mb!r}")
+    if isinstance(max_samples, bool) or not isinstance(max_samples, int) or max_samples <= 0:
+        raise LagspaceError(f"--max-samples must be a positive whole number (e.g. 10000000), got {max_samples!r}")
+    return check_limits(max_bytes=int(mb * 1_000_000), max_samples=max_samples)
+
+
 def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show: bool = False,
-          password_file=None, allow_unprotected: bool = False):
+          password_file=None, allow_unprotected: bool = False, max_upload_mb: float = 200,
+          max_samples: int = 10_000_000):
     """Start the dashboard server and block until it is stopped (Ctrl-C).
 
     Parameters
@@ -71,6 +87,8 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
     show : open a browser tab.
     password_file : file whose first line is the password asked at login.
     allow_unprotected : serve a non-local address without a password anyway.
+    max_upload_mb, max_samples : the largest file (megabytes) and recording (samples) a session may
+        load; shown to the user on the recording page.
     """
     if not _is_local(address) and password_file is None and not allow_unprotected:
         raise LagspaceError(
@@ -78,6 +96,7 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
             "give --password-file F, or --allow-unprotected to accept that")
     if not 0 <= int(port) <= 65535:
         raise LagspaceError(f"port must be between 0 and 65535, got {port}")
+    limits = _limits(max_upload_mb, max_samples)
     import panel as pn
 
     from .app import build_app
@@ -91,9 +110,10 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
     warm_up_in_background()  # compile the engine's kernels while the first user uploads
     host = "localhost" if _is_local(address) else address
     print(f"lagspace dashboard: http://{host}:{port}/  (Ctrl-C stops it)", flush=True)
+    message = max(MAX_MESSAGE, 2 * limits["max_bytes"])  # a bundle arrives base64-encoded in one message
     def session():
-        return build_app(demo_path=demo_path)
+        return build_app(demo_path=demo_path, limits=limits)
 
     pn.serve({"/": session}, address=address, port=int(port), show=show,
              title="lagspace", websocket_origin=_origins(address, int(port)), verbose=False,
-             websocket_max_message_size=MAX_MESSAGE, max_buffer_size=MAX_MESSAGE, **auth)
+             websocket_max_message_size=message, max_buffer_size=message, **auth)

@@ -70,6 +70,18 @@ def _key(settings: Settings, upto: int) -> tuple:
                  if stage_of(f.name) <= upto)
 
 
+DEFAULT_LIMITS = {"max_bytes": 200_000_000, "max_samples": 10_000_000}
+BUNDLE_INFLATION = 10  # a bundle may inflate to this many times the upload limit (results beside the data)
+
+
+def check_limits(max_bytes: int = DEFAULT_LIMITS["max_bytes"], max_samples: int = DEFAULT_LIMITS["max_samples"]) -> dict:
+    """The upload limits as a dict, refusing anything but positive whole numbers."""
+    for name, value in (("max_bytes", max_bytes), ("max_samples", max_samples)):
+        if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
+            raise LagspaceError(f"{name} must be a positive whole number, got {value!r}")
+    return {"max_bytes": max_bytes, "max_samples": max_samples}
+
+
 def one_line(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
@@ -88,6 +100,9 @@ class SessionState(param.Parameterized):
     diagnostics = param.Parameter(default=None, doc="Diagnostics dataset (delay and dimension)")
     analysis = param.Parameter(default=None, doc="engine Analysis of the last Run")
 
+    limits = param.Dict(default=dict(DEFAULT_LIMITS),
+                        doc="upload limits: {'max_bytes': file size, 'max_samples': samples in one recording}")
+
     busy = param.Boolean(default=False)
     task = param.String(default="", doc="what is running now")
     progress = param.Number(default=0.0, bounds=(0.0, 1.0))
@@ -96,6 +111,7 @@ class SessionState(param.Parameterized):
 
     def __init__(self, **params):
         super().__init__(**params)
+        self.limits = check_limits(**self.limits)
         self._data: Optional[bytes] = None           # bytes of the loaded file (None after a bundle)
         self._load_options: dict = {}
         self._keys: dict = {}                        # stage name -> settings key it was computed with
@@ -218,14 +234,14 @@ class SessionState(param.Parameterized):
         data = data.encode("utf-8") if isinstance(data, str) else bytes(data)
 
         def work(progress, cancel):
-            info = describe_source(data, name=name)
+            info = describe_source(data, name=name, **self.limits)
             if info.get("needs_variable") and variable is None:
                 self._data = data
                 self._apply(pending=dict(info, name=name), message=(
                     f"{name} holds several variables: choose which one to analyse."))
                 return
             options = dict(variable=variable, time_column=time_column)
-            rec = load_recording(data, name=name, **options)
+            rec = load_recording(data, name=name, **options, **self.limits)
             keep = {f: getattr(self.settings, f) for f in INVARIANTS}
             settings = Settings(variable=None if variable is None else str(variable),
                                 sampling_interval=sampling_interval, **keep)
@@ -295,7 +311,7 @@ class SessionState(param.Parameterized):
                     raise LagspaceError("this recording came from a bundle; open the original file to "
                                         "choose another variable")
                 opts = dict(self._load_options, variable=new.variable)
-                rec = load_recording(self._data, name=self.source_name, **opts)
+                rec = load_recording(self._data, name=self.source_name, **opts, **self.limits)
                 self._load_options = opts
             prepared, checks = (self.prepared, self.checks) if first >= 2 else self._prepare(rec, new)
             update = dict(raw=rec, prepared=prepared, checks=checks, settings=new)
@@ -402,7 +418,7 @@ class SessionState(param.Parameterized):
         data = bytes(data)
 
         def work(progress, cancel):
-            result = bundle_mod.read_bundle(data)
+            result = self._read_bundle(data, name)
             checks = check_recording(result.prepared)
             self._data, self._load_options = None, {}
             self._keys = {"prepared": _key(result.settings, 1), "diagnostics": _key(result.settings, 2)}
@@ -414,6 +430,19 @@ class SessionState(param.Parameterized):
                               message=f"Opened {name}: the recording, settings and results it holds.")
 
         return self._run(f"Opening {name}", work)
+
+    def _read_bundle(self, data: bytes, name: str):
+        """read_bundle within the session's limits (upload size, inflated size, samples)."""
+        limit, samples = self.limits["max_bytes"], self.limits["max_samples"]
+        if len(data) > limit:
+            raise LagspaceError(f"{name} is {len(data) / 1e6:.1f} MB, more than the upload limit of "
+                                f"{limit / 1e6:.1f} MB: open a smaller bundle, or ask for a larger limit")
+        result = bundle_mod.read_bundle(data, max_inflated=BUNDLE_INFLATION * limit)
+        n = result.recording.sizes.get("time", 0)
+        if n > samples:
+            raise LagspaceError(f"{name} holds a recording of {n} samples, more than the limit of {samples}: "
+                                "open it with `lagspace analyze`, or ask for a larger limit")
+        return result
 
     def bundle_analysis(self):
         """The Analysis a download would hold: the last Run, else the delay and dimension so far."""

@@ -53,6 +53,10 @@ def _parser() -> _Parser:
                    help="accept the risk of serving a non-local address without a password")
     s.add_argument("--demo", action="store_true", help="open with a demo recording loaded")
     s.add_argument("--show", action="store_true", help="open a browser tab")
+    s.add_argument("--max-upload-mb", type=float, default=200, metavar="MB",
+                   help="largest file a user may upload, in megabytes (default 200)")
+    s.add_argument("--max-samples", type=int, default=10_000_000, metavar="N",
+                   help="most samples one recording may hold (default 10000000)")
 
     a = sub.add_parser("analyze", help="analyse one recording and print the summary")
     a.add_argument("input", metavar="INPUT", help="CSV/TSV/TXT, NetCDF, .npy, .wav, or a lagspace bundle (.zip)")
@@ -108,7 +112,8 @@ def _serve(args) -> int:
     from dashboard.server import serve
 
     serve(address=args.address, port=args.port, demo=args.demo, show=args.show,
-          password_file=args.password_file, allow_unprotected=args.allow_unprotected)
+          password_file=args.password_file, allow_unprotected=args.allow_unprotected,
+          max_upload_mb=args.max_upload_mb, max_samples=args.max_samples)
     return 0
 
 

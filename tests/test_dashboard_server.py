@@ -87,3 +87,22 @@ def test_password_file_puts_a_login_in_front(tmp_path):
     finally:
         proc.terminate()
         proc.wait(10)
+
+
+@pytest.mark.parametrize("options, words", [({"max_upload_mb": 0}, "--max-upload-mb"),
+                                            ({"max_upload_mb": float("nan")}, "--max-upload-mb"),
+                                            ({"max_samples": -5}, "--max-samples"),
+                                            ({"max_samples": 2.5}, "--max-samples")])
+def test_bad_limits_are_refused(options, words):
+    with pytest.raises(LagspaceError, match=words):
+        server.serve(port=0, **options)
+
+
+def test_limits_options_reach_the_session():
+    from engine.cli import _parser
+
+    args = _parser().parse_args(["serve", "--max-upload-mb", "1.5", "--max-samples", "5000"])
+    assert server._limits(args.max_upload_mb, args.max_samples) == {"max_bytes": 1_500_000, "max_samples": 5000}
+    from dashboard.app import build_app
+
+    assert build_app(limits={"max_bytes": 1_500_000, "max_samples": 5000}).session_state.limits["max_samples"] == 5000

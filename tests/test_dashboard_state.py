@@ -309,3 +309,24 @@ def test_two_sessions_work_at_the_same_time():
         return await asyncio.gather(a.in_background(a._run, "A", job), b.in_background(b._run, "B", job))
 
     assert asyncio.run(go()) == [True, True]
+
+
+def test_limits_reach_every_load(lorenz):
+    # The session's limits are the ones the engine applies (engine.loading refuses past them).
+    data = csv_bytes(lorenz)
+    s = SessionState(limits={"max_bytes": 200_000_000, "max_samples": 2000})
+    assert s.limits == {"max_bytes": 200_000_000, "max_samples": 2000}
+    assert not s.load_bytes(data, "lorenz.csv") and "2000" in s.error and s.raw is None
+    s = SessionState(limits={"max_bytes": len(data) - 1, "max_samples": 10_000_000})
+    assert not s.load_bytes(data, "lorenz.csv") and "MB" in s.error
+    assert SessionState().limits == state_mod.DEFAULT_LIMITS
+    with pytest.raises(LagspaceError, match="max_samples"):
+        SessionState(limits={"max_bytes": 10, "max_samples": 0})
+
+
+def test_bundle_limits(analysed):
+    data = analysed.bundle_bytes()
+    small = SessionState(limits={"max_bytes": len(data) - 1, "max_samples": 10_000_000})
+    assert not small.open_bundle(data, "b.zip") and "upload limit" in small.error
+    few = SessionState(limits={"max_bytes": 200_000_000, "max_samples": 1000})
+    assert not few.open_bundle(data, "b.zip") and "3000 samples" in few.error and few.raw is None
