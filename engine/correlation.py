@@ -427,5 +427,5 @@ def correlation_entropy(cs_ds, scaling_range, sampling_interval, embedding_dimen
         out["warnings"].append(
             f"K2(m) still changes with m ({per_m[0] / (tau * dt):.3g} at m = {m_lo}, {per_m[-1] / (tau * dt):.3g} "
             f"at m = {n_dims - 1} per time unit); K2 falls towards its limit as m grows, so this is an upper "
-            "bound: use a larger max_dimension")
+            "bound: raise the largest embedding dimension (setting max_dimension)")
     return out

@@ -14,6 +14,7 @@ import io
 import numpy as np
 
 from .recording import signal, time_unit
+from .summary import STATISTIC_WORDS, format_estimate
 
 
 def _figure_png(draw, width=6.0, height=2.6) -> str:
@@ -88,8 +89,10 @@ def _curves_per_dimension(results, variable, x, span, span_label, labels, log_x=
 
 def _local_slopes(analysis):
     d2 = analysis.summary.get("correlation_dimension") or {}
+    units = analysis.results["radius"].attrs.get("units", "1")
+    label = "radius r" + ("" if units in ("", "1") else f" [{units}]")
     return _curves_per_dimension(analysis.results, "local_slope", "radius", d2.get("scaling_range"), "scaling range",
-                                 ("radius r", "d ln C / d ln r", "Local slopes of the correlation sum"), log_x=True)
+                                 (label, "d ln C / d ln r", "Local slopes of the correlation sum"), log_x=True)
 
 
 def _divergence(analysis):
@@ -107,7 +110,7 @@ def _surrogates(analysis):
         if test.get("data_statistic") is not None:
             ax.axvline(test["data_statistic"], color="#c8553d", lw=2, label="data")
             ax.legend(fontsize=7)
-        ax.set_xlabel(str(test.get("statistic")))
+        ax.set_xlabel(STATISTIC_WORDS.get(test.get("statistic"), str(test.get("statistic"))))
         ax.set_ylabel("surrogates")
     return draw
 
@@ -119,8 +122,7 @@ def _row(name, value, reason=""):
 def _pm(est, key="value", unc="uncertainty", unit=""):
     if not est or est.get(key) is None:
         return "not measured"
-    u = est.get(unc)
-    return f"{est[key]:.4g}" + (f" ± {u:.2g}" if u is not None else "") + (f" {unit}" if unit else "")
+    return format_estimate(est[key], est.get(unc), digits=4) + (f" {unit}" if unit else "")
 
 
 def report_html(analysis) -> str:
@@ -143,7 +145,8 @@ def report_html(analysis) -> str:
                  (s.get("correlation_entropy") or {}).get("reason")),
             _row("capacity dimension", _pm(s.get("capacity_dimension")), (s.get("capacity_dimension") or {}).get("reason")),
             _row("largest Lyapunov exponent", _pm(lle, "per_time_unit", unit=f"per {unit}"), lle.get("reason")),
-            _row("surrogate test", f"p = {(s['surrogate_test'] or {}).get('p_value')}, rejects linear null: "
+            _row("surrogate test", f"p = {format_estimate((s['surrogate_test'] or {}).get('p_value'), digits=2)}, "
+                 f"rejects linear null: "
                  f"{(s['surrogate_test'] or {}).get('rejects_linear_null')}", (s["surrogate_test"] or {}).get("reason")),
         ]
         figures += [_local_slopes(analysis), _divergence(analysis)]

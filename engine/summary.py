@@ -107,11 +107,42 @@ def _times(samples, dt):
     return None if samples is None else samples * dt
 
 
-def _fmt(value, unc=None, digits=3):
-    if value is None:
+#: the surrogate-test statistics in plain words
+STATISTIC_WORDS = {"prediction_error": "nonlinear prediction error", "time_asymmetry": "time asymmetry"}
+
+#: outside 10^-3 .. 10^6 numbers are written with a shared power of ten
+_PLAIN_EXPONENTS = range(-3, 6)
+
+
+def format_estimate(value, uncertainty=None, digits: int = 3) -> str:
+    """A measured value as text: rounded to its uncertainty, or to ``digits`` significant digits.
+
+    The uncertainty is quoted with two significant digits and the value is
+    rounded to the same decimal place (0.08799 ± 0.027 -> "0.088 ± 0.027",
+    0.1136 ± 0.011 -> "0.114 ± 0.011"). Without an uncertainty the value gets
+    ``digits`` significant digits; ``None`` or a non-finite value is "n/a".
+    Very large or small numbers share one power of ten, "(1.20 ± 0.03)e-7".
+
+    References
+    ----------
+    JCGM 100:2008, Evaluation of measurement data - Guide to the expression of
+    uncertainty in measurement (GUM), sec. 7.2.6.
+    """
+    if value is None or not math.isfinite(value):
         return "n/a"
-    text = f"{value:.{digits}g}"
-    return f"{text} ± {unc:.2g}" if unc is not None else text
+    value = float(value)
+    if uncertainty is None or not math.isfinite(uncertainty):
+        return f"{value:.{digits}g}"
+    u = abs(float(f"{float(uncertainty):.2g}"))
+    if u == 0:
+        return f"{value:.{digits}g} ± 0"
+    exponent = math.floor(math.log10(max(abs(value), u)))
+    scale = 0 if exponent in _PLAIN_EXPONENTS else exponent
+    v, u = value / 10.0**scale, u / 10.0**scale
+    place = 1 - math.floor(math.log10(u))  # decimal place of the uncertainty's second digit
+    shown = max(0, place)
+    text = f"{round(v, place) + 0.0:.{shown}f} ± {u:.{shown}f}"  # + 0.0: no "-0.000"
+    return text if scale == 0 else f"({text})e{scale}"
 
 
 def verdict(summary: dict) -> str:
@@ -129,25 +160,27 @@ def verdict(summary: dict) -> str:
     if rejects is None:
         parts.append("No surrogate test was run, so nothing here separates the data from linear noise")
     elif rejects:
+        statistic = STATISTIC_WORDS.get(test.get("statistic"), test.get("statistic"))
         parts.append(f"The data differ from linear Gaussian noise passed through a static transform "
-                     f"({test.get('kind', '').upper()} surrogate test on {test.get('statistic')}, p = {_fmt(test.get('p_value'), digits=2)})")
+                     f"({test.get('kind', '').upper()} surrogate test on the {statistic}, "
+                     f"p = {format_estimate(test.get('p_value'), digits=2)})")
     else:
         parts.append(f"The data cannot be told apart from linear Gaussian noise passed through a static transform "
-                     f"({test.get('kind', '').upper()} surrogate test, p = {_fmt(test.get('p_value'), digits=2)}), "
+                     f"({test.get('kind', '').upper()} surrogate test, p = {format_estimate(test.get('p_value'), digits=2)}), "
                      "so the invariants below should not be read as evidence of low-dimensional chaos")
     if d2.get("value") is not None:
         sat = "saturates" if d2.get("saturates") else "does not clearly saturate"
-        parts.append(f"the correlation dimension {sat} at D2 = {_fmt(d2['value'], d2.get('uncertainty'))}")
+        parts.append(f"the correlation dimension {sat} at D2 = {format_estimate(d2['value'], d2.get('uncertainty'))}")
     else:
         parts.append(f"no correlation dimension could be measured ({d2.get('reason', 'no scaling range')})")
     lam, dlam = lle.get("per_time_unit"), lle.get("uncertainty")
     if lam is not None:
         if dlam is not None and abs(lam) <= 2 * dlam:
-            parts.append(f"the largest Lyapunov exponent ({_fmt(lam, dlam)} per {unit}) is consistent with zero")
+            parts.append(f"the largest Lyapunov exponent ({format_estimate(lam, dlam)} per {unit}) is consistent with zero")
         elif lam > 0:
-            parts.append(f"the largest Lyapunov exponent is positive ({_fmt(lam, dlam)} per {unit})")
+            parts.append(f"the largest Lyapunov exponent is positive ({format_estimate(lam, dlam)} per {unit})")
         else:
-            parts.append(f"the largest Lyapunov exponent is negative ({_fmt(lam, dlam)} per {unit})")
+            parts.append(f"the largest Lyapunov exponent is negative ({format_estimate(lam, dlam)} per {unit})")
     sentence = "; ".join(parts) + "."
     positive = lam is not None and lam > 0 and (dlam is None or lam > 2 * dlam)
     if rejects and d2.get("saturates") and positive:
@@ -179,10 +212,10 @@ def format_text(summary: dict) -> str:
         test = summary.get("surrogate_test") or {}
         lines += [
             f"Theiler window  {summary['theiler_window']['samples']} samples",
-            f"D2              {_fmt(d2.get('value'), d2.get('uncertainty'))}",
-            f"capacity dim.   {_fmt(cap.get('value'), cap.get('uncertainty'))}",
-            f"largest exp.    {_fmt(lle.get('per_time_unit'), lle.get('uncertainty'))} per {unit}",
-            f"surrogates      p = {_fmt(test.get('p_value'), digits=2)}, rejects linear null: "
+            f"D2              {format_estimate(d2.get('value'), d2.get('uncertainty'))}",
+            f"capacity dim.   {format_estimate(cap.get('value'), cap.get('uncertainty'))}",
+            f"largest exp.    {format_estimate(lle.get('per_time_unit'), lle.get('uncertainty'))} per {unit}",
+            f"surrogates      p = {format_estimate(test.get('p_value'), digits=2)}, rejects linear null: "
             f"{test.get('rejects_linear_null')}",
         ]
     lines += [f"warning         {w}" for w in summary["warnings"]]
