@@ -21,9 +21,13 @@ import csv
 import hashlib
 import io
 import itertools
+import json
 import math
 import os
 import re
+import subprocess
+import sys
+import tempfile
 import warnings
 from dataclasses import dataclass
 
@@ -60,6 +64,7 @@ _DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
 _WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\[\(\]\)]*[\]\)])?|[\[\(][^\[\(\]\)]*[\]\)]")  # linear: no nesting
 MAX_LINE = 100_000  # characters in one line of a text file
 MAX_COLUMNS = 1000  # columns of a text file
+NETCDF4_TIMEOUT = 60.0  # seconds a NetCDF4 file may take to read
 
 
 @dataclass
@@ -95,6 +100,7 @@ def load_recording(
     time_column: str | int | None = None,
     max_bytes: int = 200_000_000,
     max_samples: int = 10_000_000,
+    netcdf4_timeout: float = NETCDF4_TIMEOUT,
 ) -> xr.Dataset:
     """Read one channel of a file into a Recording (see ``engine.recording``).
 
@@ -114,6 +120,9 @@ def load_recording(
     max_bytes, max_samples : limits beyond which the file is refused (a NetCDF4 file is refused
         before reading when a 1-D variable holds more than max_samples, or all of them more
         than 5 * max_samples: compressed variables can inflate far beyond the file's size).
+    netcdf4_timeout : seconds a NetCDF4 (HDF5) file may take to read. It is read in a child
+        process, killed after that time: a damaged HDF5 file can hold its reader for good.
+        Starting the child costs about a second per NetCDF4 file.
 
     Returns
     -------
@@ -126,7 +135,7 @@ def load_recording(
         raise RecordingError("give either variable or channel, not both")
     interval = _check_interval(sampling_interval)
     data, base = _read_source(source, name, max_bytes)
-    contents = _parse(data, base, time_column, max_samples)
+    contents = _parse(data, base, time_column, max_samples, _check_timeout(netcdf4_timeout))
     s = _choose(contents, channel if channel is not None else variable)
     if s.values.size > max_samples:
         raise RecordingError(
@@ -150,15 +159,16 @@ def load_recording(
 
 
 def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000_000,
-                    max_samples: int = 10_000_000) -> dict:
+                    max_samples: int = 10_000_000, netcdf4_timeout: float = NETCDF4_TIMEOUT) -> dict:
     """What a file offers, so that a UI can ask only the questions that matter.
 
     Returns ``{"format": str, "variables": [names], "time_columns": [names],
     "needs_variable": bool}``; ``needs_variable`` is true when more than one
-    channel could be meant and ``load_recording`` needs ``variable``.
+    channel could be meant and ``load_recording`` needs ``variable``. The other arguments are
+    those of :func:`load_recording`.
     """
     data, base = _read_source(source, name, max_bytes)
-    contents = _parse(data, base, None, max_samples)
+    contents = _parse(data, base, None, max_samples, _check_timeout(netcdf4_timeout))
     return {
         "format": contents.format,
         "variables": [s.name for _, s in contents.series],
@@ -168,6 +178,13 @@ def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000
 
 
 # -- reading bytes and telling formats apart ----------------------------------------------
+
+
+def _check_timeout(value) -> float:
+    seconds = float(value) if isinstance(value, (int, float, np.number)) and not isinstance(value, bool) else float("nan")
+    if not (np.isfinite(seconds) and seconds > 0):
+        raise RecordingError(f"netcdf4_timeout must be a positive number of seconds, got {value!r}")
+    return seconds
 
 
 def _check_interval(value):
@@ -229,7 +246,7 @@ def _magic(data: bytes) -> str | None:
     return None
 
 
-def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
+def _parse(data: bytes, base: str, time_column, max_samples, netcdf4_timeout) -> _Contents:
     ext = os.path.splitext(base)[1].lower()
     kind = _magic(data)
     if data[:4] in (b"PK\x03\x04", b"PK\x05\x06"):
@@ -240,7 +257,7 @@ def _parse(data: bytes, base: str, time_column, max_samples) -> _Contents:
     if kind in ("scipy", "h5netcdf", "wav") and time_column is not None:
         raise RecordingError(f"time_column applies to text and .npy files; {base} carries its own time: leave time_column out")
     if kind in ("scipy", "h5netcdf"):
-        return _read_netcdf(data, base, kind, max_samples)
+        return _read_netcdf(data, base, kind, max_samples, netcdf4_timeout)
     if kind == "npy":
         return _read_npy(data, base, time_column)
     if kind == "wav":
@@ -555,42 +572,139 @@ def _safe_name(stem: str) -> str:
 # -- binary formats ------------------------------------------------------------------
 
 
-def _read_netcdf(data: bytes, base: str, engine: str, max_samples: int) -> _Contents:
+def _read_netcdf(data: bytes, base: str, engine: str, max_samples: int, seconds: float) -> _Contents:
     label = "NetCDF3" if engine == "scipy" else "NetCDF4"
     try:
-        if engine == "h5netcdf":  # compressed variables can inflate far beyond the file: look before reading
-            import h5py
-
-            with h5py.File(io.BytesIO(data), "r") as f:
-                sizes = {k: v.shape[0] for k, v in f.items() if isinstance(v, h5py.Dataset) and len(v.shape or ()) == 1}
-            _check_netcdf_sizes(sizes, base, max_samples)
-        ds = xr.open_dataset(io.BytesIO(data), engine=engine, decode_times=False)
+        if engine == "scipy":  # scipy's pure-Python reader: in this process
+            with xr.open_dataset(io.BytesIO(data), engine="scipy", decode_times=False) as ds:
+                variables, coords, other = _netcdf_table(ds)
+        else:
+            _check_hdf5_superblock(data, base)
+            variables, coords, other = _netcdf4_in_child(data, base, max_samples, seconds)
     except RecordingError:
         raise
     except Exception as exc:  # the readers raise many types for damaged files
         raise RecordingError(f"{base} could not be read as {label} ({type(exc).__name__}): check the file is complete") from None
-    with ds:
-        usable, other = [], []
-        for name, var in ds.data_vars.items():
-            if var.ndim == 1 and var.dtype.kind in "biuf" and " since " not in str(var.attrs.get("units", "")):
-                usable.append(str(name))
-            else:
-                other.append(f"{_quoted(str(name))} {tuple(var.dims)}")
-        if not usable:
-            raise RecordingError(
-                f"{base} has no 1-D numeric variable (found: {_listing(other) or 'none'}): "
-                "save one channel as a 1-D variable along time"
-            )
-        series = []
-        for i, name in enumerate(usable):
-            var = ds[name]
-            time, time_unit = _netcdf_time(ds, var.dims[0], base)
-            series.append((i, _Series(
-                _safe_name(name), var.values.astype(float), str(var.attrs.get("units", "1")),
-                str(var.attrs.get("long_name", name)), time, time_unit,
-            )))
-        times = sorted({str(ds[name].dims[0]) for name in usable if ds[name].dims[0] in ds.coords})
-    return _Contents("netcdf", series, times)
+    if not variables:
+        raise RecordingError(
+            f"{base} has no 1-D numeric variable (found: {_listing(other) or 'none'}): "
+            "save one channel as a 1-D variable along time"
+        )
+    series = []
+    for i, (name, values, units, long_name, dim) in enumerate(variables):
+        time, time_unit = _netcdf_time(coords.get(dim), dim, base)
+        series.append((i, _Series(_safe_name(name), values, units, long_name, time, time_unit)))
+    return _Contents("netcdf", series, sorted({v[4] for v in variables if v[4] in coords}))
+
+
+def _netcdf_table(ds: xr.Dataset):
+    """The plain contents of an open NetCDF dataset: its usable variables as
+    (name, float values, units, long name, dimension), the coordinates of their dimensions as
+    {dimension: (float values or None when not numeric, units)}, and a description of the rest."""
+    variables, coords, other = [], {}, []
+    for name, var in ds.data_vars.items():
+        units = str(var.attrs.get("units", "1"))
+        if var.ndim == 1 and var.dtype.kind in "biuf" and " since " not in units:
+            dim = str(var.dims[0])
+            variables.append((str(name), var.values.astype(float), units, str(var.attrs.get("long_name", name)), dim))
+            if var.dims[0] in ds.coords and dim not in coords:
+                coord = ds[var.dims[0]]
+                numeric = coord.dtype.kind in "iuf"
+                coords[dim] = (coord.values.astype(float) if numeric else None, str(coord.attrs.get("units", "")))
+        else:
+            other.append(f"{_quoted(str(name))} {tuple(var.dims)}")
+    return variables, coords, other
+
+
+def _check_hdf5_superblock(data: bytes, base: str) -> None:
+    """Refuse, without opening it, an HDF5 file whose superblock is unknown or that is shorter than it
+    says (the HDF5 File Format Specification, superblock versions 0-3)."""
+    version = data[8] if len(data) > 8 else None
+    if version in (0, 1):
+        size, at = (data[13] if len(data) > 13 else 0), 24 + 4 * version  # base, free space, end of file
+    elif version in (2, 3):
+        size, at = (data[9] if len(data) > 9 else 0), 12  # base, extension, end of file
+    else:
+        size = at = 0
+    fields = [int.from_bytes(data[at + k * size:at + (k + 1) * size], "little") for k in (0, 2)]
+    if size not in (2, 4, 8, 16) or len(data) < at + 3 * size:
+        raise RecordingError(f"{base} starts like a NetCDF4 file but its HDF5 header is damaged: "
+                             "check the file is complete, or export it again")
+    if fields[1] > len(data) + fields[0]:
+        raise RecordingError(f"{base} is a truncated NetCDF4 file (its header says {fields[1]} bytes, it holds "
+                             f"{len(data)}): copy or export it again")
+
+
+_CHILD = "import sys; sys.path.insert(0, sys.argv[1]); from engine.loading import _netcdf4_child; _netcdf4_child(*sys.argv[2:])"
+_PACKAGE_ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+
+
+def _netcdf4_in_child(data: bytes, base: str, max_samples: int, seconds: float):
+    """:func:`_netcdf_table` of NetCDF4 bytes, read by a child process that is killed after
+    ``seconds`` (a damaged HDF5 file can hold its reader for good). The child hands back JSON and
+    float .npy files only; nothing it returns is unpickled."""
+    with tempfile.TemporaryDirectory(prefix="lagspace-nc4-") as folder:
+        with open(os.path.join(folder, "in.nc"), "wb") as fh:
+            fh.write(data)
+        try:
+            subprocess.run([sys.executable, "-c", _CHILD, _PACKAGE_ROOT, folder, str(max_samples)], cwd=folder,
+                           stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                           timeout=seconds, check=False)
+        except subprocess.TimeoutExpired:  # run() has killed the child
+            raise RecordingError(f"the NetCDF4 file {base} could not be read within {seconds:g} s; it may be damaged: "
+                                 "re-export it as NetCDF3 or CSV") from None
+        try:
+            with open(os.path.join(folder, "out.json"), encoding="utf-8") as fh:
+                out = json.load(fh)
+        except (OSError, ValueError):
+            out = {"error": "the reader stopped"}  # the child crashed before it wrote its answer
+        if "sizes" in out:
+            _check_netcdf_sizes(out["sizes"], base, max_samples)
+        if "error" in out:
+            raise RecordingError(f"{base} could not be read as NetCDF4 ({out['error']}): check the file is complete")
+
+        def array(name):
+            values = np.load(os.path.join(folder, name), allow_pickle=False)
+            if values.dtype != np.float64 or values.ndim != 1:
+                raise TypeError(f"{name} is not a 1-D float array")
+            return values
+
+        variables = [(str(name), array(f"v{i}.npy"), str(units), str(long_name), str(dim))
+                     for i, (name, units, long_name, dim) in enumerate(out["variables"])]
+        coords = {str(dim): (array(f"c{j}.npy") if numeric else None, str(units))
+                  for j, (dim, units, numeric) in enumerate(out["coords"])}
+        return variables, coords, [str(text) for text in out["other"]]
+
+
+def _netcdf4_child(folder: str, max_samples: str) -> None:
+    """The child process of :func:`_netcdf4_in_child`: read ``folder/in.nc``, write ``out.json``
+    (and one .npy file per array) into ``folder``."""
+    import h5py
+
+    path = os.path.join(folder, "in.nc")
+    try:  # compressed variables can inflate far beyond the file: look before reading
+        with h5py.File(path, "r") as f:
+            sizes = {k: v.shape[0] for k, v in f.items() if isinstance(v, h5py.Dataset) and len(v.shape or ()) == 1}
+        try:
+            _check_netcdf_sizes(sizes, "", int(max_samples))
+        except RecordingError:
+            out = {"sizes": sizes}
+        else:
+            with xr.open_dataset(path, engine="h5netcdf", decode_times=False) as ds:
+                variables, coords, other = _netcdf_table(ds)
+            for i, v in enumerate(variables):
+                np.save(os.path.join(folder, f"v{i}.npy"), v[1])
+            for j, (values, _) in enumerate(coords.values()):
+                if values is not None:
+                    np.save(os.path.join(folder, f"c{j}.npy"), values)
+            out = {"variables": [[v[0], v[2], v[3], v[4]] for v in variables],
+                   "coords": [[dim, units, values is not None] for dim, (values, units) in coords.items()],
+                   "other": other}
+    except Exception as exc:  # any failure is the file's: the parent says so in one line
+        out = {"error": type(exc).__name__}
+    with open(os.path.join(folder, "out.part"), "w", encoding="utf-8") as fh:
+        json.dump(out, fh)
+    os.replace(os.path.join(folder, "out.part"), os.path.join(folder, "out.json"))
 
 
 def _check_netcdf_sizes(sizes: dict, base: str, max_samples: int) -> None:
@@ -606,12 +720,11 @@ def _check_netcdf_sizes(sizes: dict, base: str, max_samples: int) -> None:
                              f"more than {5 * max_samples}: save the channel you want in a file of its own")
 
 
-def _netcdf_time(ds, dim, base):
-    if dim not in ds.coords or ds[dim].dtype.kind not in "iuf":
+def _netcdf_time(coord, dim: str, base: str):
+    """(time, unit) from a dimension's coordinate ``(values or None, units)``, if it has one."""
+    if coord is None or coord[0] is None:
         return None, "sample"
-    coord = ds[dim]
-    values = coord.values.astype(float)
-    units = str(coord.attrs.get("units", ""))
+    values, units = coord
     m = re.fullmatch(r"\s*(\w+)\s+since\s+.+", units)
     if m:
         factor, label = _time_factor(m.group(1))

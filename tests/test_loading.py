@@ -8,7 +8,9 @@ hashlib for the SHA-256.
 import hashlib
 import io
 import json
+import os
 import pickle
+import tempfile
 
 import numpy as np
 import pandas as pd
@@ -17,6 +19,7 @@ import xarray as xr
 from scipy.io import wavfile
 
 from engine.errors import LagspaceError, RecordingError
+from engine import loading
 from engine.loading import describe_source, load_recording
 from engine.recording import sampling_interval, signal, time_unit, variable_name
 
@@ -168,6 +171,82 @@ def test_netcdf_cf_datetime(x, engine):
     rec = load_recording(bytes(ds.to_netcdf(engine=engine)), name="cf.nc")
     assert time_unit(rec) == "s"
     np.testing.assert_allclose(rec["time"].values, 0.02 * np.arange(600), atol=1e-12)
+
+
+def test_netcdf4_packed_and_masked_like_xarray(x):
+    # Reference: xarray's own CF decoding (scale_factor, add_offset, _FillValue) in this process;
+    # the loader reads NetCDF4 in a child process and must hand back the same numbers.
+    values = x[:600].copy()
+    values[[5, 300]] = np.nan
+    ds = xr.Dataset({"v": ("time", values, {"units": "mV"})}, coords={"time": ("time", 0.5 * np.arange(600))})
+    data = bytes(ds.to_netcdf(engine="h5netcdf", encoding={"v": {
+        "dtype": "int16", "scale_factor": 0.01, "add_offset": 3.0, "_FillValue": -32768}}))
+    expected = xr.open_dataset(io.BytesIO(data), engine="h5netcdf")["v"].values.astype(float)
+    rec = load_recording(data, name="packed.nc")
+    np.testing.assert_array_equal(signal(rec), expected)
+    assert np.isnan(signal(rec)[[5, 300]]).all() and sampling_interval(rec) == 0.5
+
+
+@pytest.fixture()
+def nc4(x):
+    return bytes(xr.Dataset({"v": ("time", x[:600])}).to_netcdf(engine="h5netcdf"))
+
+
+@pytest.fixture()
+def scratch(tmp_path, monkeypatch):
+    """The temporary folder the loader uses, so a test can see that nothing is left behind."""
+    folder = tmp_path / "tmp"
+    folder.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(folder))
+    return folder
+
+
+def test_netcdf4_reader_that_hangs_is_killed(monkeypatch, tmp_path, scratch, nc4):
+    # A stand-in for an HDF5 library stuck on a damaged file: a child that writes its process id and sleeps.
+    pid_file = tmp_path / "pid"
+    monkeypatch.setattr(loading, "_CHILD", f"import os, time; open({str(pid_file)!r}, 'w').write(str(os.getpid())); "
+                                           "time.sleep(600)")
+    with pytest.raises(RecordingError) as err:
+        describe_source(nc4, name="stuck.nc", netcdf4_timeout=3)
+    assert "within 3 s" in one_line(err) and "NetCDF3 or CSV" in one_line(err)
+    pid = int(pid_file.read_text())
+    with pytest.raises(OSError):  # POSIX kill(pid, 0): the child no longer exists
+        os.kill(pid, 0)
+    assert list(scratch.iterdir()) == []
+
+
+def test_netcdf4_child_answers_are_never_unpickled(monkeypatch, tmp_path, scratch, nc4):
+    # A child that crashes, and one that hands back a pickled array (as a compromised reader might).
+    monkeypatch.setattr(loading, "_CHILD", "import os; os._exit(3)")
+    with pytest.raises(RecordingError) as err:
+        load_recording(nc4, name="crash.nc")
+    assert "could not be read as NetCDF4" in one_line(err)
+    marker = tmp_path / "unpickled"
+    evil = ("import json, os, sys, numpy as np\n"
+            "class Trap:\n"
+            f"    def __reduce__(self): return (os.mkdir, ({str(marker)!r},))\n"
+            "d = sys.argv[2]\n"
+            "np.save(d + '/v0.npy', np.array([1.0, Trap()], dtype=object), allow_pickle=True)\n"
+            "json.dump({'variables': [['v', '1', 'v', 'time']], 'coords': [], 'other': []}, open(d + '/out.json', 'w'))")
+    monkeypatch.setattr(loading, "_CHILD", evil)
+    with pytest.raises(RecordingError) as err:
+        load_recording(nc4, name="evil.nc")
+    assert "could not be read as NetCDF4" in one_line(err)
+    assert not marker.exists(), "the loader unpickled what the child returned"
+    assert list(scratch.iterdir()) == []
+
+
+def test_netcdf4_damaged_header_refused_before_reading(nc4):
+    # HDF5 File Format Specification: superblock version 0 keeps the end-of-file address at byte 40.
+    with pytest.raises(RecordingError) as err:
+        load_recording(nc4[:len(nc4) - 10], name="cut.nc")
+    assert f"says {len(nc4)} bytes" in one_line(err)
+    with pytest.raises(RecordingError) as err:
+        load_recording(nc4[:8] + b"\x07" + nc4[9:], name="v7.nc")  # no superblock version 7
+    assert "header is damaged" in one_line(err)
+    with pytest.raises(RecordingError) as err:
+        load_recording(nc4, name="a.nc", netcdf4_timeout=0)
+    assert "netcdf4_timeout" in one_line(err)
 
 
 def test_npy_one_and_two_dimensional(x):
