@@ -51,6 +51,66 @@ def _dimension_coord(max_dimension):
                           {"units": "1", "long_name": "embedding dimension"})}
 
 
+def _sweep(x, delay, max_dimension, theiler, stage, tolerances=None, with_cao=True):
+    """One nearest-neighbour search per dimension, shared by both methods.
+
+    False nearest neighbours (when ``tolerances`` = (rtol, atol)) need d = 1..max_dimension,
+    Cao's E and E* (when ``with_cao``) d = 1..max_dimension + 1. Returns the fractions
+    (either criterion, first, second; by d) and (E, E*, relative error of E*; by d).
+    """
+    top = max_dimension + 1 if with_cao else max_dimension
+    label = " and ".join(([] if tolerances is None else ["false nearest neighbours"]) + (["Cao's E"] if with_cao else []))
+    size = x.std()
+    fractions, e = np.full((3, max_dimension), np.nan), np.full((3, max_dimension + 1), np.nan)
+    for d in range(1, top + 1):
+        stage(f"{label} at dimension {d}", (d - 1) / top)
+        distance, extra = _pairs(x, delay, d, theiler)
+        if not distance.size:
+            continue
+        if tolerances is not None and d <= max_dimension:
+            by_ratio = extra > tolerances[0] * distance
+            by_size = np.maximum(distance, extra) > tolerances[1] * size
+            fractions[:, d - 1] = [np.mean(by_ratio | by_size), by_ratio.mean(), by_size.mean()]
+        if with_cao:
+            e[0, d - 1] = np.mean(np.maximum(distance, extra) / distance)
+            e[1, d - 1] = extra.mean()
+            if e[1, d - 1] > 0:
+                e[2, d - 1] = extra.std() / np.sqrt(extra.size) / e[1, d - 1]
+    return fractions, e
+
+
+def _fnn_dataset(fractions, max_dimension, delay, theiler, rtol, atol):
+    return xr.Dataset(
+        {
+            "false_nearest_fraction": ("dimension", fractions[0], {
+                "units": "1", "long_name": "fraction of false nearest neighbours (either criterion)"}),
+            "false_nearest_fraction_rtol": ("dimension", fractions[1], {
+                "units": "1", "long_name": f"fraction of false nearest neighbours (distance ratio > {rtol:g})"}),
+            "false_nearest_fraction_atol": ("dimension", fractions[2], {
+                "units": "1", "long_name": f"fraction of false nearest neighbours (distance > {atol:g} R_A)"}),
+        },
+        coords=_dimension_coord(max_dimension),
+        attrs={"delay": delay, "theiler": theiler, "rtol": rtol, "atol": atol},
+    )
+
+
+def _cao_dataset(e, max_dimension, delay, theiler):
+    e, e_star, e_star_rel_err = e
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e1 = e[1:] / e[:-1]
+        e2 = e_star[1:] / e_star[:-1]
+    e2_err = np.abs(e2) * np.hypot(e_star_rel_err[1:], e_star_rel_err[:-1])
+    return xr.Dataset(
+        {
+            "cao_e1": ("dimension", e1, {"units": "1", "long_name": "Cao's E1 = E(d+1)/E(d)"}),
+            "cao_e2": ("dimension", e2, {"units": "1", "long_name": "Cao's E2 = E*(d+1)/E*(d)"}),
+            "cao_e2_error": ("dimension", e2_err, {"units": "1", "long_name": "standard error of Cao's E2"}),
+        },
+        coords=_dimension_coord(max_dimension),
+        attrs={"delay": delay, "theiler": theiler},
+    )
+
+
 def false_nearest_neighbours(x, delay, max_dimension=10, theiler=0, rtol=15.0, atol=2.0,
                              progress=None, cancel=None) -> xr.Dataset:
     """Fraction of false nearest neighbours for d = 1..max_dimension.
@@ -74,28 +134,9 @@ def false_nearest_neighbours(x, delay, max_dimension=10, theiler=0, rtol=15.0, a
     x, delay, max_dimension, theiler = _checked(x, delay, max_dimension, theiler, extra=1)
     rtol, atol = positive_number("rtol", rtol), positive_number("atol", atol)
     stage = Stage(progress, cancel)
-    size = x.std()
-    out = np.full((3, max_dimension), np.nan)
-    for d in range(1, max_dimension + 1):
-        stage(f"false nearest neighbours at dimension {d}", (d - 1) / max_dimension)
-        distance, extra = _pairs(x, delay, d, theiler)
-        if distance.size:
-            by_ratio = extra > rtol * distance
-            by_size = np.maximum(distance, extra) > atol * size
-            out[:, d - 1] = [np.mean(by_ratio | by_size), by_ratio.mean(), by_size.mean()]
+    fractions, _ = _sweep(x, delay, max_dimension, theiler, stage, tolerances=(rtol, atol), with_cao=False)
     stage("false nearest neighbours done", 1.0)
-    return xr.Dataset(
-        {
-            "false_nearest_fraction": ("dimension", out[0], {
-                "units": "1", "long_name": "fraction of false nearest neighbours (either criterion)"}),
-            "false_nearest_fraction_rtol": ("dimension", out[1], {
-                "units": "1", "long_name": f"fraction of false nearest neighbours (distance ratio > {rtol:g})"}),
-            "false_nearest_fraction_atol": ("dimension", out[2], {
-                "units": "1", "long_name": f"fraction of false nearest neighbours (distance > {atol:g} R_A)"}),
-        },
-        coords=_dimension_coord(max_dimension),
-        attrs={"delay": delay, "theiler": theiler, "rtol": rtol, "atol": atol},
-    )
+    return _fnn_dataset(fractions, max_dimension, delay, theiler, rtol, atol)
 
 
 def cao(x, delay, max_dimension=10, theiler=0, progress=None, cancel=None) -> xr.Dataset:
@@ -116,29 +157,29 @@ def cao(x, delay, max_dimension=10, theiler=0, progress=None, cancel=None) -> xr
     """
     x, delay, max_dimension, theiler = _checked(x, delay, max_dimension, theiler, extra=2)
     stage = Stage(progress, cancel)
-    e, e_star, e_star_rel_err = (np.full(max_dimension + 1, np.nan) for _ in range(3))
-    for d in range(1, max_dimension + 2):
-        stage(f"Cao's E at dimension {d}", (d - 1) / (max_dimension + 1))
-        distance, extra = _pairs(x, delay, d, theiler)
-        if distance.size:
-            e[d - 1] = np.mean(np.maximum(distance, extra) / distance)
-            e_star[d - 1] = extra.mean()
-            if e_star[d - 1] > 0:
-                e_star_rel_err[d - 1] = extra.std() / np.sqrt(extra.size) / e_star[d - 1]
+    _, e = _sweep(x, delay, max_dimension, theiler, stage)
     stage("Cao's E1 and E2 done", 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        e1 = e[1:] / e[:-1]
-        e2 = e_star[1:] / e_star[:-1]
-    e2_err = np.abs(e2) * np.hypot(e_star_rel_err[1:], e_star_rel_err[:-1])
-    return xr.Dataset(
-        {
-            "cao_e1": ("dimension", e1, {"units": "1", "long_name": "Cao's E1 = E(d+1)/E(d)"}),
-            "cao_e2": ("dimension", e2, {"units": "1", "long_name": "Cao's E2 = E*(d+1)/E*(d)"}),
-            "cao_e2_error": ("dimension", e2_err, {"units": "1", "long_name": "standard error of Cao's E2"}),
-        },
-        coords=_dimension_coord(max_dimension),
-        attrs={"delay": delay, "theiler": theiler},
-    )
+    return _cao_dataset(e, max_dimension, delay, theiler)
+
+
+def false_nearest_neighbours_and_cao(x, delay, max_dimension=10, theiler=0, rtol=15.0, atol=2.0,
+                                     progress=None, cancel=None) -> tuple[xr.Dataset, xr.Dataset]:
+    """:func:`false_nearest_neighbours` and :func:`cao` together, from one nearest-neighbour
+    search per dimension instead of two (both follow the same neighbours from d into d + 1).
+    The datasets equal those of the two functions called one after the other.
+
+    References
+    ----------
+    Kennel, Brown & Abarbanel, Phys. Rev. A 45 (1992) 3403.
+    Cao, Physica D 110 (1997) 43.
+    """
+    x, delay, max_dimension, theiler = _checked(x, delay, max_dimension, theiler, extra=2)
+    rtol, atol = positive_number("rtol", rtol), positive_number("atol", atol)
+    stage = Stage(progress, cancel)
+    fractions, e = _sweep(x, delay, max_dimension, theiler, stage, tolerances=(rtol, atol))
+    stage("false nearest neighbours and Cao's E1 and E2 done", 1.0)
+    return (_fnn_dataset(fractions, max_dimension, delay, theiler, rtol, atol),
+            _cao_dataset(e, max_dimension, delay, theiler))
 
 
 def _first_fnn(fnn_ds, threshold):
@@ -246,4 +287,4 @@ def suggest_dimension(fnn_ds: xr.Dataset, cao_ds: xr.Dataset, threshold=0.01, ca
     }
 
 
-__all__ = ["false_nearest_neighbours", "cao", "suggest_dimension"]
+__all__ = ["false_nearest_neighbours", "cao", "false_nearest_neighbours_and_cao", "suggest_dimension"]

@@ -2,10 +2,11 @@
 
 import numpy as np
 import pytest
+import xarray as xr
 from scipy.spatial.distance import cdist
 
 import systems
-from engine.dimension import cao, false_nearest_neighbours, suggest_dimension
+from engine.dimension import cao, false_nearest_neighbours, false_nearest_neighbours_and_cao, suggest_dimension
 from engine.embedding import delay_vectors
 from engine.errors import LagspaceError
 
@@ -66,6 +67,23 @@ def test_fractions_match_a_cdist_brute_force():
         e_star.append(extra.mean())
     np.testing.assert_allclose(e["cao_e1"], np.array(big_e[1:]) / big_e[:-1], rtol=1e-12)
     np.testing.assert_allclose(e["cao_e2"], np.array(e_star[1:]) / e_star[:-1], rtol=1e-12)
+
+
+@pytest.mark.parametrize("kind", ["lorenz", "noise"])
+def test_one_search_for_both_equals_two(kind):
+    # The shared search must change nothing: the pair equals the two methods run apart, value for value
+    # (xarray.testing.assert_identical: exact values, attributes and coordinates).
+    x, delay, theiler = ((np.array(systems.lorenz(3000)), 16, 16) if kind == "lorenz"
+                         else (systems.white_noise(2000, seed=4), 1, 0))
+    messages = []
+    fnn, e = false_nearest_neighbours_and_cao(x, delay, max_dimension=6, theiler=theiler, rtol=12.0, atol=1.5,
+                                              progress=lambda f, m: messages.append(m))
+    xr.testing.assert_identical(fnn, false_nearest_neighbours(x, delay, max_dimension=6, theiler=theiler,
+                                                              rtol=12.0, atol=1.5))
+    xr.testing.assert_identical(e, cao(x, delay, max_dimension=6, theiler=theiler))
+    assert sum("at dimension" in m for m in messages) == 7  # one search per d = 1..max_dimension + 1
+    with pytest.raises(LagspaceError):
+        false_nearest_neighbours_and_cao(x, delay, atol=0)
 
 
 def test_nothing_settles_returns_the_largest_with_a_warning():
