@@ -58,6 +58,21 @@ def _coords(dims, steps):
     }
 
 
+def _dataset(name, method, div, long_name, level, level_long_name, more, dims, steps, delay, theiler):
+    """A divergence dataset: curve ``name`` (dimension, step), its saturation level and the
+    per-dimension variables ``more`` ({name: (values, units, long name)})."""
+    return xr.Dataset(
+        {
+            name: (("dimension", "step"), div, {"units": "ln(signal units)", "long_name": long_name, "method": method}),
+            f"{name}_saturation": ("dimension", level, {"units": "ln(signal units)", "long_name": level_long_name}),
+            **{key: ("dimension", values, {"units": units, "long_name": text})
+               for key, (values, units, text) in more.items()},
+        },
+        coords=_coords(dims, steps),
+        attrs={"delay": delay, "theiler": theiler, "method": method},
+    )
+
+
 def divergence_rosenstein(x, delay, dimensions, theiler, steps, progress=None, cancel=None) -> xr.Dataset:
     """Mean ln distance of nearest-neighbour pairs after k = 0..steps steps.
 
@@ -85,18 +100,9 @@ def divergence_rosenstein(x, delay, dimensions, theiler, steps, progress=None, c
         pairs[a] = int(np.count_nonzero(partner >= 0))
         level[a] = _far_level(x, m, delay, theiler, n, inside_log=True)
     stage("divergence done", 1.0)
-    return xr.Dataset(
-        {
-            "divergence": (("dimension", "step"), div, {
-                "units": "ln(signal units)", "long_name": "mean ln distance of nearest neighbours after k steps",
-                "method": "Rosenstein"}),
-            "divergence_pairs": ("dimension", pairs, {"units": "1", "long_name": "neighbour pairs followed"}),
-            "divergence_saturation": ("dimension", level, {
-                "units": "ln(signal units)", "long_name": "mean ln distance of vectors far apart in time"}),
-        },
-        coords=_coords(dims, steps),
-        attrs={"delay": delay, "theiler": theiler, "method": "Rosenstein"},
-    )
+    return _dataset("divergence", "Rosenstein", div, "mean ln distance of nearest neighbours after k steps",
+                    level, "mean ln distance of vectors far apart in time",
+                    {"divergence_pairs": (pairs, "1", "neighbour pairs followed")}, dims, steps, delay, theiler)
 
 
 def divergence_kantz(x, delay, dimensions, theiler, steps, radius=None,
@@ -141,20 +147,12 @@ def divergence_kantz(x, delay, dimensions, theiler, steps, radius=None,
         radii[a], used[a] = r, int(have.sum())
         level[a] = _far_level(x, m, delay, theiler, n, inside_log=False)
     stage("divergence done", 1.0)
-    return xr.Dataset(
-        {
-            "divergence_kantz": (("dimension", "step"), div, {
-                "units": "ln(signal units)", "method": "Kantz",
-                "long_name": "mean ln of the mean distance to neighbours within the radius after k steps"}),
-            "divergence_kantz_saturation": ("dimension", level, {
-                "units": "ln(signal units)", "long_name": "ln mean distance of vectors far apart in time"}),
-            "kantz_radius": ("dimension", radii, {"units": "signal units", "long_name": "neighbourhood radius"}),
-            "kantz_reference_points": ("dimension", used, {
-                "units": "1", "long_name": "reference points with at least one neighbour"}),
-        },
-        coords=_coords(dims, steps),
-        attrs={"delay": delay, "theiler": theiler, "method": "Kantz"},
-    )
+    return _dataset("divergence_kantz", "Kantz", div,
+                    "mean ln of the mean distance to neighbours within the radius after k steps",
+                    level, "ln mean distance of vectors far apart in time",
+                    {"kantz_radius": (radii, "signal units", "neighbourhood radius"),
+                     "kantz_reference_points": (used, "1", "reference points with at least one neighbour")},
+                    dims, steps, delay, theiler)
 
 
 def _far_level(x, m, delay, theiler, n, inside_log):
@@ -218,7 +216,7 @@ def _auto_range(k, y, level):
     above = np.flatnonzero(y >= top - SATURATION * room)
     end = int(above[0]) if above.size else y.size - 1
     if end + 1 < MIN_FIT_POINTS:
-        return None, (f"the divergence saturates after {k[end]:g} steps, too soon for a straight-line fit: "
+        return None, (f"the divergence saturates after {int(k[end])} steps, too soon for a straight-line fit: "
                       "no range of exponential growth (noise-like data, or too coarse sampling)")
     # prefix sums give every candidate line fit in O(1)
     c = [np.concatenate([[0.0], np.cumsum(v)]) for v in (np.ones_like(k), k, y, k * k, k * y, y * y)]
@@ -270,7 +268,7 @@ def _estimate(div_ds, name, m, fit_range, dt, unit):
             out["reason"] = f"the fit range {first:g} to {last:g} steps holds fewer than 3 points of the curve"
             return out
         inside = np.flatnonzero(mask)
-        how = f"fit over the range {first:g} to {last:g} steps set by the user"
+        how = "fit over a range set by the user"
     kk, yy = k[inside], y[inside]
     slope, se, _ = _line(kk, yy)
     # spread across neighbouring dimensions, over the same range
@@ -291,7 +289,7 @@ def _estimate(div_ds, name, m, fit_range, dt, unit):
     out.update(
         value=lam, per_sample=slope, per_time_unit=lam, uncertainty=total / dt,
         uncertainty_parts={"fit": float(np.nan_to_num(se)) / dt, "dimensions": spread / dt, "range": halves / dt},
-        fit_range=[float(kk[0]), float(kk[-1])], fit_range_time=[float(kk[0] * dt), float(kk[-1] * dt)],
+        fit_range=[int(kk[0]), int(kk[-1])], fit_range_time=[float(kk[0] * dt), float(kk[-1] * dt)],
         dimensions_used=used,
     )
     units["uncertainty_parts"] = f"1/{unit}"
@@ -308,7 +306,7 @@ def _estimate(div_ds, name, m, fit_range, dt, unit):
     elif lam > 0:
         out["lyapunov_time"] = 1.0 / lam
     out["reason"] = (
-        f"{method} divergence at dimension {m}: {how}, steps {kk[0]:g} to {kk[-1]:g} "
+        f"{method} divergence at dimension {m}: {how}, steps {int(kk[0])} to {int(kk[-1])} "
         f"({kk[0] * dt:g} to {kk[-1] * dt:g} {unit}); slope {slope:.4g} per sample = {lam:.4g} per {unit}. "
         f"The uncertainty combines the fit's standard error, the spread over dimensions {used} and the "
         "difference between the slopes of the range's two halves.")
@@ -333,7 +331,7 @@ def _compare(first: dict, second: dict, unit: str) -> str:
             "starting separations, most exposed to noise); Kantz the mean distance to all neighbours within a "
             "radius (larger starting separations, so a shorter straight range, nearer the early transient and "
             f"saturation). Compare the two curves; the longer straight range here is {longer['method']}'s "
-            f"({longer['fit_range'][0]:g} to {longer['fit_range'][1]:g} steps).")
+            f"({longer['fit_range'][0]} to {longer['fit_range'][1]} steps).")
 
 
 def _estimates(div_ds, embedding_dimension, fit_range, sampling_interval, time_unit):

@@ -54,6 +54,8 @@ def test_lorenz_exponent(lorenz):
         assert e["units"]["per_time_unit"] == "1/s" and e["units"]["per_sample"] == "1/sample"
         assert e["fit_range_time"] == pytest.approx([v * 0.01 for v in e["fit_range"]])
         assert e["dimensions_used"] == [2, 3, 4]
+        first, last = e["fit_range"]  # steps are whole numbers, and the reason says them as such
+        assert isinstance(first, int) and isinstance(last, int) and f"steps {first} to {last} " in e["reason"]
     assert "comparison" in est
 
 
@@ -86,11 +88,11 @@ def test_white_noise_has_no_exponent():
 
 def test_user_fit_range_is_a_least_squares_line(lorenz):
     # the refit is the ordinary least-squares slope over the chosen steps (reference: numpy.polyfit)
-    est = fit_divergence(lorenz, 3, (100, 300), sampling_interval=0.01, time_unit="s")
+    est = fit_divergence(lorenz, 3, (99.5, 300.0), sampling_interval=0.01, time_unit="s")
     y = lorenz["divergence"].sel(dimension=3, step=slice(100, 300))
     assert est["per_sample"] == pytest.approx(np.polyfit(y["step"], y, 1)[0], rel=1e-10)
-    assert est["fit_range"] == [100.0, 300.0]
-    assert "set by the user" in est["reason"]
+    assert est["fit_range"] == [100, 300]  # the whole steps inside the range asked for
+    assert "set by the user" in est["reason"] and "steps 100 to 300 " in est["reason"]
     with pytest.raises(LagspaceError):
         fit_divergence(lorenz, 3, (300, 100))
 
