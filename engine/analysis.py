@@ -25,7 +25,7 @@ from .errors import LagspaceError
 from .loading import load_recording
 from .preparation import prepare
 from .progress import Stage
-from .recording import json_attr, sampling_interval, signal, time_unit
+from .recording import json_attr, sampling_interval, series_units, signal, time_unit
 from .settings import Settings
 from .summary import summarise
 
@@ -70,7 +70,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
                                     f"{theiler_choice['value']} samples", "suggested": theiler_choice}
     w = int(theiler_choice["value"])
     estimates["theiler_window"] = theiler_choice
-    st["space_time_quantile"].attrs["units"] = correlation.series_units(prepared)
+    st["space_time_quantile"].attrs["units"] = series_units(prepared)
     parts.append(st)
 
     stage("correlation sums", 0.05)
@@ -81,10 +81,7 @@ def invariants(prepared: xr.Dataset, diagnostics: xr.Dataset, settings: Settings
         reference_points=settings.reference_points, seed=settings.seed,
         progress=stage.callback(0.05, 0.35), cancel=cancel,
     )
-    d2 = correlation.correlation_dimension(cs, m, scaling_range=settings.scaling_range)
-    estimates["correlation_dimension"] = d2
-    estimates["correlation_dimension_ml"] = correlation.takens_estimator(cs, m, r_max=_upper(d2))
-    estimates["correlation_entropy"] = correlation.correlation_entropy(cs, d2.get("scaling_range"), dt, embedding_dimension=m)
+    estimates.update(_correlation_estimates(cs, m, settings.scaling_range, dt))
     parts.append(cs)
 
     stage("box counting", 0.35)
@@ -151,9 +148,16 @@ def _plain(ds: xr.Dataset) -> xr.Dataset:
     return out
 
 
-def _upper(d2: dict):
-    rng = d2.get("scaling_range")
-    return rng[1] if rng else None
+def _correlation_estimates(sums: xr.Dataset, m: int, scaling_range, dt: float) -> dict:
+    """D2 over the user's scaling range (else the detected one), and the Takens estimate and
+    K2 over the range D2 used."""
+    d2 = correlation.correlation_dimension(sums, m, scaling_range=scaling_range)
+    used = d2.get("scaling_range")
+    return {
+        "correlation_dimension": d2,
+        "correlation_dimension_ml": correlation.takens_estimator(sums, m, r_max=used[1] if used else None),
+        "correlation_entropy": correlation.correlation_entropy(sums, used, dt, embedding_dimension=m),
+    }
 
 
 def _lyapunov(curves: xr.Dataset, m: int, fit_range, dt: float, unit: str) -> dict:
@@ -211,10 +215,7 @@ def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> A
     m = int(res.attrs["embedding_dimension"])
     dt, unit = sampling_interval(analysis.prepared), time_unit(analysis.prepared)
     if scaling_range is not None:
-        d2 = correlation.correlation_dimension(res, m, scaling_range=settings.scaling_range)
-        res.attrs["correlation_dimension"] = json.dumps(d2)
-        res.attrs["correlation_dimension_ml"] = json.dumps(correlation.takens_estimator(res, m, r_max=_upper(d2)))
-        res.attrs["correlation_entropy"] = json.dumps(correlation.correlation_entropy(res, d2.get("scaling_range"), dt, embedding_dimension=m))
+        res.attrs.update({k: json.dumps(v) for k, v in _correlation_estimates(res, m, settings.scaling_range, dt).items()})
     if divergence_range is not None:
         res.attrs["largest_lyapunov_exponent"] = json.dumps(_lyapunov(res, m, settings.divergence_range, dt, unit))
     summary = summarise(analysis.prepared, analysis.diagnostics, res, settings)

@@ -17,7 +17,8 @@ import numpy as np
 import xarray as xr
 
 from .arguments import as_series, whole_number
-from .correlation import series_units, unit_suffix
+from .correlation import unit_suffix
+from .recording import series_units
 from .embedding import check_embedding, embedded_length
 from .errors import LagspaceError
 from .kernels.boxes import box_indices, occupied_boxes

@@ -18,7 +18,6 @@ Eckmann & Ruelle, Physica D 56 (1992) 185 (largest credible D2 ~ 2 log10 N).
 
 from __future__ import annotations
 
-import json
 
 import numpy as np
 import xarray as xr
@@ -28,7 +27,7 @@ from .embedding import check_embedding, embedded_length
 from .errors import LagspaceError
 from .kernels.pairs import pair_counts, pair_total
 from .progress import Stage
-from .recording import variable_name
+from .recording import series_units
 from .scaling import local_slopes, widest_flat_range
 
 #: slopes count only where at least this many pairs are closer than r
@@ -42,21 +41,6 @@ SATURATION_TOLERANCE = 0.1
 #: the largest radius, as a fraction of the extent: above it C(r) shows the attractor's size rather than
 #: its dimension, and leaving those pairs out lets the count stop early
 TOP_RADIUS_FRACTION = 0.25
-
-
-#: the units of a standardised series (mean removed, divided by its standard deviation)
-STANDARDISED_UNITS = "standard deviations"
-
-
-def series_units(x) -> str:
-    """Units of a Recording's samples: its variable's, or "standard deviations" once it
-    has been standardised ("1" for a plain array)."""
-    if not isinstance(x, xr.Dataset):
-        return "1"
-    steps = json.loads(x.attrs.get("preparation", "[]"))
-    if any(isinstance(s, dict) and s.get("step") == "standardise" for s in steps):
-        return STANDARDISED_UNITS
-    return str(x[variable_name(x)].attrs.get("units", "1"))
 
 
 def unit_suffix(ds, coordinate: str) -> str:

@@ -19,10 +19,10 @@ import scipy.fft
 from scipy import signal as sps
 
 from .arguments import as_series, positive_number, whole_number
-from .correlation import series_units
 from .errors import LagspaceError
 from .kernels.delay import lagged_mutual_information
 from .recording import sampling_interval as recording_interval
+from .recording import series_units
 from .recording import time_unit as recording_time_unit
 
 MAX_BINS = 128

@@ -73,17 +73,16 @@ def estimate(recording: xr.Dataset, settings: Settings | None = None, progress=N
     suggestion = delay_methods.suggest_delay(ami, acf, dominant=dominant, sampling_interval=dt, time_unit=unit)
     tau = _apply_delay_override(suggestion, settings, dt, unit)
 
-    stage("false nearest neighbours", 0.3)
+    stage("false nearest neighbours and Cao's E1 and E2", 0.3)
     theiler = _dimension_theiler(acf_times, settings)
     max_dim = settings.max_dimension
     while max_dim > 2 and (n - max_dim * tau) < 3 * (2 * theiler + 10):
         max_dim -= 1
     check_embedding(n, max_dim + 1, tau, minimum=2 * theiler + 10)
-    fnn = dimension_methods.false_nearest_neighbours(
-        x, delay=tau, max_dimension=max_dim, theiler=theiler, rtol=settings.fnn_rtol, atol=settings.fnn_atol
+    fnn, cao = dimension_methods.false_nearest_neighbours_and_cao(
+        x, delay=tau, max_dimension=max_dim, theiler=theiler, rtol=settings.fnn_rtol, atol=settings.fnn_atol,
+        progress=stage.callback(0.3, 0.98), cancel=cancel,
     )
-    stage("Cao's E1 and E2", 0.65)
-    cao = dimension_methods.cao(x, delay=tau, max_dimension=max_dim, theiler=theiler)
     dim_suggestion = dimension_methods.suggest_dimension(
         fnn, cao, threshold=settings.fnn_threshold, cao_threshold=settings.cao_threshold
     )

@@ -109,3 +109,18 @@ def append_step(rec: xr.Dataset, step: dict) -> xr.Dataset:
     steps = json_attr(rec, "preparation", [])
     steps.append(step)
     return with_json_attr(rec, "preparation", steps)
+
+
+#: the units of a standardised series (mean removed, divided by its standard deviation)
+STANDARDISED_UNITS = "standard deviations"
+
+
+def series_units(x) -> str:
+    """Units of a Recording's samples: its variable's, or "standard deviations" once it
+    has been standardised ("1" for a plain array)."""
+    if not isinstance(x, xr.Dataset):
+        return "1"
+    steps = json_attr(x, "preparation", [])
+    if any(isinstance(s, dict) and s.get("step") == "standardise" for s in steps):
+        return STANDARDISED_UNITS
+    return str(x[variable_name(x)].attrs.get("units", "1"))

@@ -14,8 +14,7 @@ from typing import Optional
 import xarray as xr
 
 from . import __version__
-from .correlation import series_units
-from .recording import json_attr, sampling_interval, time_unit, variable_name
+from .recording import json_attr, sampling_interval, series_units, time_unit, variable_name
 from .settings import Settings
 
 CAUTION = ("lagspace is a research tool, not a diagnostic or safety device; for clinical signals or "

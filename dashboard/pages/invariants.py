@@ -11,7 +11,7 @@ import panel as pn
 import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
-from engine.summary import CAUTION
+from engine.summary import CAUTION, STATISTIC_WORDS
 
 from .. import figures
 from ..state import SessionState
@@ -19,7 +19,6 @@ from .common import card, esc, number, run
 
 KIND_WORDS = {"iaaft": "IAAFT (spectrum and values kept)", "aaft": "AAFT (amplitude adjusted)",
               "ft": "FT (spectrum kept, Gaussian)"}
-STATISTIC_WORDS = {"prediction_error": "nonlinear prediction error", "time_asymmetry": "time asymmetry"}
 
 
 def _pm(est: dict | None, key: str = "value", unc: str = "uncertainty") -> tuple[str, str]:
