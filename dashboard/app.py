@@ -11,6 +11,8 @@ from .pages.common import BundleTools, StatusBar, estimate_if_ready, run
 from .pages.embedding import EmbeddingPage
 from .pages.invariants import InvariantsPage
 from .pages.recording import RecordingPage
+from engine.summary import CAUTION
+
 from .state import DEFAULT_LIMITS, SessionState
 
 CSS = f"""
@@ -53,7 +55,8 @@ def build_app(demo_path: Path | str | None = None, limits: dict | None = None) -
     pages = [RecordingPage(state=state), EmbeddingPage(state=state), InvariantsPage(state=state)]
     tabs = pn.Tabs(*[(p.title, p) for p in pages], sizing_mode="stretch_width")
     template = pn.template.BootstrapTemplate(
-        title="lagspace", sidebar=[BundleTools(state=state), pn.pane.HTML(HELP, margin=(16, 10))],
+        title="lagspace", sidebar=[BundleTools(state=state), pn.pane.HTML(HELP, margin=(16, 10)),
+                                          pn.pane.Alert(CAUTION, alert_type="warning", margin=(8, 10))],
         main=[StatusBar(state=state), tabs], header_background=style.INK, sidebar_width=290,
     )
     template.session_state = state  # for tests and debugging

@@ -242,7 +242,9 @@ class SessionState(param.Parameterized):
                 return
             options = dict(variable=variable, time_column=time_column)
             rec = load_recording(data, name=name, **options, **self.limits)
-            keep = {f: getattr(self.settings, f) for f in INVARIANTS}
+            # a fitted range belongs to the old recording's curves; other invariant settings carry over
+            keep = {f: getattr(self.settings, f) for f in INVARIANTS
+                    if f not in ("scaling_range", "divergence_range")}
             settings = Settings(variable=None if variable is None else str(variable),
                                 sampling_interval=sampling_interval, **keep)
             prepared, checks = self._prepare(rec, settings)

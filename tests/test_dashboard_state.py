@@ -274,7 +274,7 @@ def test_bad_bundle_keeps_the_session(analysed):
     assert analysed.error and "\n" not in analysed.error and analysed.analysis is analysis
 
 
-def test_refit_uses_the_chosen_range(analysed):
+def test_refit_uses_the_chosen_range(analysed, lorenz):
     fresh = SessionState()
     fresh.open_bundle(analysed.bundle_bytes(), "b.zip")
     radii = fresh.analysis.results["radius"].values
@@ -285,6 +285,9 @@ def test_refit_uses_the_chosen_range(analysed):
     assert fit[0] >= steps[5] and fit[1] <= steps[40]
     rng = fresh.summary["correlation_dimension"]["scaling_range"]
     assert rng is None or (rng[0] >= lo * (1 - 1e-9) and rng[1] <= hi * (1 + 1e-9))
+    # a chosen range belongs to these curves: a new recording starts from detected ranges again
+    assert fresh.load_bytes(csv_bytes(lorenz[:3000]), "next.csv"), fresh.error
+    assert fresh.settings.scaling_range is None and fresh.settings.divergence_range is None
 
 
 def test_cancel_stops_the_analysis_and_keeps_the_old_one(analysed):

@@ -37,8 +37,14 @@ class RecordingPage(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         s = self.state
+        megabytes = max(1, s.limits["max_bytes"] // 1_000_000)
         self._dropper = pn.widgets.FileDropper(accepted_filetypes=ACCEPTED, multiple=False,
-                                               max_file_size="200MB", sizing_mode="stretch_width", height=110)
+                                               max_file_size=f"{megabytes}MB", sizing_mode="stretch_width",
+                                               height=110)
+        self._limits_note = pn.pane.HTML(
+            f"<span style='color:{style.SLATE}; font-size: 0.9em'>This server accepts files up to "
+            f"{megabytes} MB and recordings up to {s.limits['max_samples']:,} samples.</span>",
+            margin=(0, 10), sizing_mode="stretch_width")
         self._dropper.param.watch(self._on_drop, "value")
         self._seen: set = set()
         demos = {p.name: str(p) for p in demo_files()}
@@ -220,7 +226,7 @@ class RecordingPage(pn.viewable.Viewer):
         load = card("Open a recording",
                     pn.pane.HTML("<small>Drop a file here, or click to browse: CSV, TSV, TXT, NetCDF (.nc), "
                                  ".npy or .wav with one measured channel.</small>", margin=(0, 6)),
-                    self._dropper, pn.Row(self._demo, self._demo_button, sizing_mode="stretch_width"),
+                    self._dropper, self._limits_note, pn.Row(self._demo, self._demo_button, sizing_mode="stretch_width"),
                     sizing_mode="stretch_width")
         prep = card("Preparation", pn.pane.HTML("<small>Remove before analysis:</small>", margin=(0, 6)),
                     self._detrend, pn.Row(self._crop_start, self._crop_stop), self._standardise,
