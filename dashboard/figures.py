@@ -108,7 +108,7 @@ def time_series(rec: xr.Dataset, max_points: int = MAX_LINE_POINTS) -> hv.Curve:
     """The recording against time, thinned to a min/max envelope for long series."""
     t, x = envelope(rec["time"].values, signal(rec), max_points)
     n = rec.sizes["time"]
-    title = f"{variable_name(rec)}: {n:,} samples" + ("" if n <= max_points else f" (drawn as {t.size:,}-point envelope)")
+    title = f"{variable_name(rec)}: {n:,} samples" + ("" if n <= max_points else ", envelope drawn")
     return hv.Curve((t, x), kdims=[hv.Dimension("time", label=f"time ({time_unit(rec)})")],
                     vdims=[hv.Dimension("value", label=_signal_label(rec))]).opts(
         color=style.INK, line_width=1, title=title, tools=["hover", "xwheel_zoom"], **style.PLOT)
@@ -125,8 +125,8 @@ def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = 
     f = spec[freq_dim].values
     p = spec["power"].values
     keep = (f > 0) & (p > 0)
-    unit = spec[freq_dim].attrs.get("units", "1/sample")
-    curve = hv.Curve((f[keep], p[keep]), kdims=[hv.Dimension("frequency", label=f"frequency ({unit})")],
+    freq_unit = spec[freq_dim].attrs.get("units", "1/sample")
+    curve = hv.Curve((f[keep], p[keep]), kdims=[hv.Dimension("frequency", label=f"frequency ({freq_unit})")],
                      vdims=[hv.Dimension("power", label=_var_label(spec, "power"))]).opts(
         color=style.INK, line_width=1, logy=True, tools=["hover"], **style.PLOT)
     title = "power spectrum"

@@ -174,3 +174,18 @@ def test_missing_results_give_a_note_not_an_error():
     for fig in (figures.local_slopes(None, {}), figures.divergence(None, {}), figures.box_counting(None, {}),
                 figures.surrogate_histogram(None, {}), figures.recurrence_plot(None), figures.space_time(None, 3)):
         assert isinstance(fig, hv.Text)
+
+
+def test_spectrum_marks_the_dominant_period_in_time_units():
+    # Analytic: a 2 Hz sine sampled every 0.01 s has its power peak at 2 Hz, i.e. period 0.5 s.
+    from engine.delay import power_spectrum
+
+    t = np.arange(4000) * 0.01
+    spec = power_spectrum(np.sin(2 * np.pi * 2.0 * t), sampling_interval=0.01)
+    fig = figures.spectrum(spec, {"time": 0.5, "strength": 0.99}, unit="s")
+    curve, mark = fig.get(0), fig.get(1)
+    assert fig.opts.get().kwargs["title"].endswith("dominant period 0.5 s")
+    assert mark.data == pytest.approx(2.0)
+    f, p = curve.dimension_values(0), curve.dimension_values(1)
+    assert f[np.argmax(p)] == pytest.approx(2.0, abs=0.05)
+    assert hv.render(fig) is not None
