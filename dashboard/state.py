@@ -34,7 +34,7 @@ from engine.diagnostics import estimate as estimate_diagnostics
 from engine.errors import Cancelled, LagspaceError
 from engine.loading import describe_source, load_recording
 from engine.preparation import prepare
-from engine.recording import json_attr, sampling_interval, signal
+from engine.recording import json_attr
 from engine.settings import Settings
 from engine.summary import summarise
 
@@ -140,15 +140,9 @@ class SessionState(param.Parameterized):
         return None if self.analysis is None else self.analysis.summary
 
     def spectrum(self):
-        """(power spectrum dataset or None, dominant period dict or None) of the prepared recording.
-
-        The spectrum comes from ``engine.delay.power_spectrum`` when the engine offers it; the
-        dominant period from the diagnostics.
-        """
-        spec = None
-        maker = getattr(delay_mod, "power_spectrum", None)
-        if self.prepared is not None and maker is not None:
-            spec = maker(signal(self.prepared), sampling_interval=sampling_interval(self.prepared))
+        """(power spectrum dataset or None, dominant period dict or None) of the prepared recording,
+        from ``engine.delay.power_spectrum`` (in the recording's units) and the diagnostics."""
+        spec = None if self.prepared is None else delay_mod.power_spectrum(self.prepared)
         dominant = None if self.diagnostics is None else json_attr(self.diagnostics, "dominant_period")
         return spec, dominant
 
