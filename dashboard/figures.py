@@ -195,7 +195,7 @@ def delay_plot(rec: xr.Dataset, delay: int, max_points: int = MAX_CLOUD_POINTS) 
     kx, ky = _pair_axes(rec, delay)
     return hv.Path([v[:max_points]], kdims=[kx, ky]).opts(
         color=style.INK, line_width=0.8, alpha=0.9, responsive=True, height=360,
-        title=f"delay plot, delay {delay} samples{shown}", show_grid=True, toolbar="right")
+        title=f"delay plot, delay {delay} samples{shown}", show_grid=True, hooks=style.WHEEL_OFF, toolbar="right")
 
 
 def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: float = 20.0,
@@ -208,7 +208,7 @@ def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: 
     pts = hv.Points((p[:, 0], p[:, 1], -p[:, 2]), kdims=["across", "up"], vdims=["nearness"])
     return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, responsive=True,
                     aspect=1, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
-                    toolbar=None, title=f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)")
+                    hooks=style.WHEEL_OFF, toolbar=None, title=f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)")
 
 
 def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layout:
@@ -373,7 +373,7 @@ def recurrence_plot(results: xr.Dataset, pixels: int = 400):
                    vdims=[hv.Dimension("density", label="fraction recurrent")])
     rate = facts.get("recurrence_rate")
     return img.opts(cmap=["#ffffff", style.INK], responsive=True, aspect=1, colorbar=False,
-                    tools=["hover"], toolbar="right",
+                    tools=["hover"], hooks=style.WHEEL_OFF, toolbar="right",
                     title=f"{n:,} vectors, radius {_fmt(facts.get('radius'))}, rate {_fmt(rate, 2)}")
 
 

@@ -12,7 +12,15 @@ ALERT = "#a23b2a"      # refusals and errors
 DIMENSION_RAMP = ["#b7cfdc", "#9bbdd0", "#7faac2", "#6497b3", "#4b84a3", "#357190",
                   "#255e7c", "#1b4c66", "#133b50", "#0c2b3b"]
 
-PLOT = dict(responsive=True, height=280, toolbar="right", fontscale=1.0, show_grid=True)
+
+
+def _scroll_moves_the_page(plot, element) -> None:
+    """Leave the mouse wheel to the page: zoom only after the user picks the wheel-zoom tool."""
+    plot.state.toolbar.active_scroll = None
+
+
+WHEEL_OFF = [_scroll_moves_the_page]
+PLOT = dict(responsive=True, height=280, toolbar="right", fontscale=1.0, show_grid=True, hooks=WHEEL_OFF)
 
 
 def dimension_colour(i: int, n: int) -> str:

@@ -90,6 +90,10 @@ def test_recording_figures_render(lorenz_rec):
                 figures.rotated_view(lorenz_rec, 16), figures.delay_multiples(lorenz_rec, [4, 16]),
                 figures.spectrum(None, {"time": 0.7, "strength": 0.3}, unit="s")):
         assert hv.render(fig) is not None
+    # Scrolling the page must not zoom a plot the pointer passes over (wheel zoom stays opt-in).
+    for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16),
+                figures.rotated_view(lorenz_rec, 16)):
+        assert hv.render(fig).toolbar.active_scroll is None
 
 
 def test_recurrence_image_is_the_symmetric_recurrence_matrix():
