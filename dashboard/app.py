@@ -6,13 +6,13 @@ from pathlib import Path
 
 import panel as pn
 
+from engine.summary import CAUTION
+
 from . import style
 from .pages.common import BundleTools, StatusBar, estimate_if_ready, run
 from .pages.embedding import EmbeddingPage
 from .pages.invariants import InvariantsPage
 from .pages.recording import RecordingPage
-from engine.summary import CAUTION
-
 from .state import DEFAULT_LIMITS, SessionState
 
 CSS = f"""
