@@ -8,8 +8,11 @@ from __future__ import annotations
 
 import ipaddress
 import logging
+import os
 import secrets
 from pathlib import Path
+
+import platformdirs
 
 from engine.errors import LagspaceError
 from engine.warmup import warm_up_in_background
@@ -54,6 +57,33 @@ def _read_password(password_file) -> str:
     if len(password) < 8:
         raise LagspaceError(f"the password in {password_file} is shorter than 8 characters; use a longer one")
     return password
+
+
+def cookie_secret_path() -> Path:
+    """Where the login-cookie secret is kept: the user's config folder (``$XDG_CONFIG_HOME/lagspace``)."""
+    return Path(platformdirs.user_config_dir("lagspace")) / "cookie_secret"
+
+
+def _cookie_secret() -> str:
+    """The secret that signs login cookies: made once, kept readable by this user only, reused on restart
+    (so logins survive a restart); remade when the file is missing, damaged or readable by others."""
+    path = cookie_secret_path()
+    try:
+        if path.stat().st_mode & 0o077 == 0:
+            secret = path.read_text(encoding="ascii").strip()
+            if len(secret) == 64 and all(c in "0123456789abcdef" for c in secret):
+                return secret
+        log.warning("the cookie secret in %s was readable by others or damaged; making a new one", path)
+    except (OSError, UnicodeDecodeError):
+        pass
+    path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
+    secret = secrets.token_hex(32)
+    temporary = path.with_name(f".{path.name}.{os.getpid()}")
+    descriptor = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    with os.fdopen(descriptor, "w", encoding="ascii") as handle:
+        handle.write(secret + "\n")
+    os.replace(temporary, path)
+    return secret
 
 
 def _origins(address: str, port: int) -> list[str]:
@@ -106,7 +136,10 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
         log.warning("no demo recordings found in %s; starting empty", DEMO_DIR)
     auth = {}
     if password_file is not None:
-        auth = dict(basic_auth=_read_password(password_file), cookie_secret=secrets.token_hex(32))
+        auth = dict(basic_auth=_read_password(password_file), cookie_secret=_cookie_secret())
+    elif not _is_local(address):
+        print(f"lagspace: WARNING serving {address}:{port} without a password (--allow-unprotected): "
+              "anyone who can reach this port can use the dashboard", flush=True)
     warm_up_in_background()  # compile the engine's kernels while the first user uploads
     host = "localhost" if _is_local(address) else address
     print(f"lagspace dashboard: http://{host}:{port}/  (Ctrl-C stops it)", flush=True)

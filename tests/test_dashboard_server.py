@@ -1,5 +1,6 @@
 """The server's guards and the session builder, without a browser."""
 
+import os
 import socket
 import subprocess
 import sys
@@ -70,7 +71,8 @@ def test_password_file_puts_a_login_in_front(tmp_path):
     port = _free_port()
     proc = subprocess.Popen([sys.executable, "-c", f"from dashboard.server import serve; "
                              f"serve(port={port}, password_file={str(pw)!r})"],
-                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+                            env=dict(os.environ, XDG_CONFIG_HOME=str(tmp_path)))
     try:
         deadline = time.monotonic() + 60
         while True:
@@ -84,6 +86,7 @@ def test_password_file_puts_a_login_in_front(tmp_path):
                 assert proc.poll() is None and time.monotonic() < deadline, proc.stdout.read()
                 time.sleep(0.5)
         assert "/login" in page.geturl() or "password" in page.read().decode().lower()
+        assert (tmp_path / "lagspace" / "cookie_secret").stat().st_mode & 0o777 == 0o600
     finally:
         proc.terminate()
         proc.wait(10)
@@ -106,3 +109,33 @@ def test_limits_options_reach_the_session():
     from dashboard.app import build_app
 
     assert build_app(limits={"max_bytes": 1_500_000, "max_samples": 5000}).session_state.limits["max_samples"] == 5000
+
+
+def test_cookie_secret_is_kept_private_and_reused(tmp_path, monkeypatch):
+    """Logins survive a restart only if the cookie secret does; nobody else may read it (common practice)."""
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
+    first = server._cookie_secret()
+    path = server.cookie_secret_path()
+    assert path.parent == tmp_path / "lagspace"
+    assert path.stat().st_mode & 0o777 == 0o600 and len(first) == 64
+    assert server._cookie_secret() == first
+    path.chmod(0o644)  # readable by others: it may have leaked, so a new one is made
+    second = server._cookie_secret()
+    assert second != first and path.stat().st_mode & 0o777 == 0o600
+    path.write_text("short\n")
+    assert server._cookie_secret() not in ("short", second)
+
+
+def test_unprotected_network_address_is_announced(tmp_path):
+    """--allow-unprotected serves a network address but says so before the URL."""
+    port = _free_port()
+    proc = subprocess.Popen([sys.executable, "-m", "engine.cli", "serve", "--address", "0.0.0.0",
+                             "--port", str(port), "--allow-unprotected"],
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        lines = [proc.stdout.readline() for _ in range(2)]
+    finally:
+        proc.terminate()
+        proc.wait(10)
+    assert "without a password" in lines[0] and "--allow-unprotected" in lines[0], lines
+    assert f":{port}/" in lines[1], lines
