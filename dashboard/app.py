@@ -60,6 +60,8 @@ def build_app(demo_path: Path | str | None = None, limits: dict | None = None) -
         main=[StatusBar(state=state), tabs], header_background=style.INK, sidebar_width=290,
     )
     template.session_state = state  # for tests and debugging
+    if pn.state.curdoc is not None:  # served: the session's data goes when its browser tab does
+        pn.state.on_session_destroyed(lambda context: state.close())
     if demo_path is not None:
         path = Path(demo_path)
 

@@ -188,6 +188,15 @@ class SessionState(param.Parameterized):
         """Ask the running work to stop at its next check."""
         self._cancel.set()
 
+    def close(self) -> None:
+        """The browser session ended: stop its work and let go of its data and results
+        (quietly: no page is left to update)."""
+        self.cancel()
+        self._data, self._load_options, self._keys = None, {}, {}
+        with param.discard_events(self):
+            self.param.update(source_name="", pending=None, raw=None, prepared=None, checks=[],
+                              diagnostics=None, analysis=None)
+
     def _apply(self, **updates) -> None:
         """Set parameters; from a worker started by :meth:`in_background`, hand them to the
         session's event loop instead (in order), so that the page is only touched from there."""

@@ -139,3 +139,25 @@ def test_unprotected_network_address_is_announced(tmp_path):
         proc.wait(10)
     assert "without a password" in lines[0] and "--allow-unprotected" in lines[0], lines
     assert f":{port}/" in lines[1], lines
+
+
+def test_ended_session_lets_go_of_its_data():
+    """Bokeh calls a document's session-destroyed callbacks when its browser tab goes; the session's
+    recording and results must go with it (issue 6: nothing kept for a session that ended)."""
+    from bokeh.document import Document
+    from panel.io.state import set_curdoc
+
+    import systems
+    from dashboard.app import build_app
+
+    doc = Document()
+    with set_curdoc(doc):
+        app = build_app()
+    state = app.session_state
+    x = systems.lorenz(1000, dt=0.01)
+    assert state.load_bytes("\n".join(f"{v:.9g}" for v in x).encode(), "x.csv") and state.raw is not None
+    callbacks = list(doc.session_destroyed_callbacks)
+    assert callbacks, "build_app registered nothing for the end of the session"
+    for callback in callbacks:
+        callback(None)
+    assert state.raw is None and state.prepared is None and state._data is None and state._cancel.is_set()

@@ -333,3 +333,27 @@ def test_bundle_limits(analysed):
     assert not small.open_bundle(data, "b.zip") and "upload limit" in small.error
     few = SessionState(limits={"max_bytes": 200_000_000, "max_samples": 1000})
     assert not few.open_bundle(data, "b.zip") and "3000 samples" in few.error and few.raw is None
+
+
+def test_a_session_leaves_no_temporary_files(lorenz, tmp_path, monkeypatch):
+    """Issue 6: per-session temporary files go when the work ends. Everything a session holds is in
+    memory; the one temporary folder (the NetCDF4 reader's) must be gone once the load returns."""
+    import tempfile
+
+    import xarray as xr
+
+    folder = tmp_path / "tmp"
+    folder.mkdir()
+    monkeypatch.setenv("TMPDIR", str(folder))
+    monkeypatch.setattr(tempfile, "tempdir", str(folder))
+    nc4 = bytes(xr.Dataset({"x": ("time", lorenz)}, coords={"time": 0.01 * np.arange(lorenz.size)})
+                .to_netcdf(engine="h5netcdf"))
+    s = SessionState()
+    assert s.load_bytes(nc4, "lorenz.nc"), s.error
+    assert s.raw.sizes["time"] == lorenz.size
+    assert s.estimate(), s.error
+    other = SessionState()
+    assert other.open_bundle(s.bundle_bytes(), "lorenz-lagspace.zip"), other.error
+    s.close()
+    other.close()
+    assert list(folder.iterdir()) == []
