@@ -16,6 +16,7 @@ from __future__ import annotations
 import asyncio
 import dataclasses
 import logging
+import re
 import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
@@ -465,5 +466,8 @@ class SessionState(param.Parameterized):
 
     @property
     def bundle_filename(self) -> str:
-        stem = (self.source_name or "recording").rsplit(".", 1)[0] or "recording"
+        """The download's name: the last part of the uploaded file's name, in safe characters only
+        (the browser's name is never a path here)."""
+        base = re.sub(r"[^\w.-]+", "_", self.source_name.replace("\\", "/").rsplit("/", 1)[-1])
+        stem = base.rsplit(".", 1)[0].strip("._") or "recording"
         return f"{stem}-lagspace.zip"

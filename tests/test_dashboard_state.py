@@ -357,3 +357,19 @@ def test_a_session_leaves_no_temporary_files(lorenz, tmp_path, monkeypatch):
     s.close()
     other.close()
     assert list(folder.iterdir()) == []
+
+
+@pytest.mark.parametrize("name, download", [("../../x.csv", "x-lagspace.zip"), ("/etc/passwd", "passwd-lagspace.zip"),
+                                            ("..\\..\\win.csv", "win-lagspace.zip"), ("..", "recording-lagspace.zip"),
+                                            ("a b;rm -rf.csv", "a_b_rm_-rf-lagspace.zip")])
+def test_uploaded_names_are_never_paths(lorenz, tmp_path, monkeypatch, name, download):
+    """Issue 6: nothing the browser sends is used as a server-side path; the name only labels things."""
+    work = tmp_path / "server" / "cwd"
+    work.mkdir(parents=True)
+    monkeypatch.chdir(work)
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(lorenz[:1000]), name), s.error
+    assert s.estimate(), s.error
+    s.bundle_bytes()
+    assert s.bundle_filename == download
+    assert [p for p in tmp_path.rglob("*") if p.is_file()] == []
