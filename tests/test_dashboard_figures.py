@@ -193,3 +193,17 @@ def test_spectrum_marks_the_dominant_period_in_time_units():
     f, p = curve.dimension_values(0), curve.dimension_values(1)
     assert f[np.argmax(p)] == pytest.approx(2.0, abs=0.05)
     assert hv.render(fig) is not None
+
+
+def test_results_table_rounds_values_to_their_uncertainty(henon_analysis):
+    """GUM (JCGM 100:2008) 7.2.6: uncertainty to two significant digits, value to the same place."""
+    from dashboard.pages.invariants import result_rows, results_table_html
+
+    summary = dict(henon_analysis.summary)
+    summary["correlation_dimension"] = dict(summary["correlation_dimension"], value=1.2168, uncertainty=0.0234)
+    summary["largest_lyapunov_exponent"] = dict(summary["largest_lyapunov_exponent"],
+                                                per_time_unit=0.41872, uncertainty=0.0139)
+    rows = {q: (v, unit) for q, v, unit, _ in result_rows(summary)}
+    assert rows["Correlation dimension D2"] == ("1.217 ± 0.023", "(no unit)")
+    assert rows["Largest Lyapunov exponent"] == ("0.419 ± 0.014", "per sample")
+    assert "<th>Value ± uncertainty</th>" in results_table_html(summary)

@@ -11,7 +11,7 @@ import panel as pn
 import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
-from engine.summary import CAUTION, STATISTIC_WORDS
+from engine.summary import CAUTION, STATISTIC_WORDS, format_estimate
 
 from .. import figures
 from ..state import SessionState
@@ -21,31 +21,28 @@ KIND_WORDS = {"iaaft": "IAAFT (spectrum and values kept)", "aaft": "AAFT (amplit
               "ft": "FT (spectrum kept, Gaussian)"}
 
 
-def _pm(est: dict | None, key: str = "value", unc: str = "uncertainty") -> tuple[str, str]:
-    if not est or est.get(key) is None:
-        return "n/a", ""
-    value = est[key]
-    u = est.get(unc)
-    return number(value), ("" if u is None else f"± {number(u, 2)}")
+def _pm(est: dict | None, key: str = "value", unc: str = "uncertainty") -> str:
+    """An estimate rounded to its uncertainty (``engine.summary.format_estimate``)."""
+    return "n/a" if not est else format_estimate(est.get(key), est.get(unc))
 
 
-def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
-    """(quantity, value, uncertainty, unit, how it was obtained) for the results table."""
+def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
+    """(quantity, value ± uncertainty, unit, how it was obtained) for the results table."""
     unit = summary.get("input", {}).get("time_unit", "sample")
     sig_units = summary.get("input", {}).get("units", "1")
     rows = []
     d = summary.get("delay") or {}
-    rows.append(("Delay", f"{d.get('samples')}", "", "samples" + ("" if unit == "sample" else
+    rows.append(("Delay", f"{d.get('samples')}", "samples" + ("" if unit == "sample" else
                  f" (= {number(d.get('time'))} {unit})"), d.get("reason", "")))
     m = summary.get("embedding_dimension") or {}
-    rows.append(("Embedding dimension", f"{m.get('value')}", "", "", m.get("reason", "")))
+    rows.append(("Embedding dimension", f"{m.get('value')}", "", m.get("reason", "")))
     w = summary.get("theiler_window")
     if w:
-        rows.append(("Theiler window", f"{w.get('samples')}", "", "samples" + ("" if unit == "sample" else
+        rows.append(("Theiler window", f"{w.get('samples')}", "samples" + ("" if unit == "sample" else
                      f" (= {number(w.get('time'))} {unit})"), w.get("reason") or ""))
     d2 = summary.get("correlation_dimension")
     if d2 is not None:
-        v, u = _pm(d2)
+        v = _pm(d2)
         rng = d2.get("scaling_range")
         how = d2.get("reason") or ""
         if rng:
@@ -53,46 +50,46 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
                    f"{'' if sig_units in ('', '1') else sig_units}; "
                    + ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate")
                    + (f". {how}" if how else ""))
-        rows.append(("Correlation dimension D2", v, u, "(no unit)", how))
+        rows.append(("Correlation dimension D2", v, "(no unit)", how))
         ml = d2.get("maximum_likelihood")
         if ml:
-            v, u = _pm(ml)
-            rows.append(("  … maximum-likelihood estimate", v, u, "(no unit)", ml.get("reason") or "Takens' estimator"))
+            v = _pm(ml)
+            rows.append(("  … maximum-likelihood estimate", v, "(no unit)", ml.get("reason") or "Takens' estimator"))
     k2 = summary.get("correlation_entropy")
     if k2 is not None:
-        v, u = _pm(k2, "per_time_unit")
-        rows.append(("Correlation entropy K2", v, u, f"per {unit}", k2.get("reason") or ""))
+        v = _pm(k2, "per_time_unit")
+        rows.append(("Correlation entropy K2", v, f"per {unit}", k2.get("reason") or ""))
         if unit != "sample" and k2.get("per_sample") is not None:
-            v, u = _pm(k2, "per_sample", "uncertainty_per_sample")
-            rows.append(("  … per sample", v, u, "per sample", ""))
+            v = _pm(k2, "per_sample", "uncertainty_per_sample")
+            rows.append(("  … per sample", v, "per sample", ""))
     cap = summary.get("capacity_dimension")
     if cap is not None:
-        v, u = _pm(cap)
-        rows.append(("Capacity (box-counting) dimension", v, u, "(no unit)", cap.get("reason") or ""))
+        v = _pm(cap)
+        rows.append(("Capacity (box-counting) dimension", v, "(no unit)", cap.get("reason") or ""))
     lle = summary.get("largest_lyapunov_exponent")
     if lle is not None:
-        v, u = _pm(lle, "per_time_unit")
+        v = _pm(lle, "per_time_unit")
         fit = lle.get("fit_range")
         how = lle.get("reason") or ""
         if fit:
             how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how}" if how else "")
-        rows.append(("Largest Lyapunov exponent", v, u, f"per {unit}", how))
+        rows.append(("Largest Lyapunov exponent", v, f"per {unit}", how))
         if unit != "sample" and lle.get("per_sample") is not None:
-            v, u = _pm(lle, "per_sample", "uncertainty_per_sample")
-            rows.append(("  … per sample", v, u, "per sample", ""))
+            v = _pm(lle, "per_sample", "uncertainty_per_sample")
+            rows.append(("  … per sample", v, "per sample", ""))
         if lle.get("lyapunov_time") is not None:
-            rows.append(("  … Lyapunov time (1 / exponent)", number(lle["lyapunov_time"]), "", unit,
+            rows.append(("  … Lyapunov time (1 / exponent)", format_estimate(lle["lyapunov_time"]), unit,
                          "time for a small error to grow by a factor e"))
         kantz = lle.get("kantz")
         if kantz:
-            v, u = _pm(kantz, "per_time_unit")
-            rows.append(("  … cross-check (Kantz)", v, u, f"per {unit}", kantz.get("reason") or ""))
+            v = _pm(kantz, "per_time_unit")
+            rows.append(("  … cross-check (Kantz)", v, f"per {unit}", kantz.get("reason") or ""))
     test = summary.get("surrogate_test")
     if test is not None:
         p = test.get("p_value")
         verdict = {True: "differs from linear noise", False: "not distinguishable from linear noise",
                    None: test.get("reason") or "not run"}[test.get("rejects_linear_null")]
-        rows.append(("Surrogate test p-value", number(p, 2) if p is not None else "n/a", "", "",
+        rows.append(("Surrogate test p-value", format_estimate(p, digits=2), "",
                      f"{test.get('surrogates')} {str(test.get('kind') or '').upper()} surrogates, "
                      f"{STATISTIC_WORDS.get(test.get('statistic'), test.get('statistic'))}: {verdict}"))
     rec = summary.get("recurrence")
@@ -100,15 +97,15 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str, str]]:
         for key, label in (("recurrence_rate", "Recurrence rate"), ("determinism", "Determinism"),
                            ("laminarity", "Laminarity")):
             if key in rec:
-                rows.append((label, number(rec[key], 3), "", "(fraction)", ""))
+                rows.append((label, format_estimate(rec[key]), "(fraction)", ""))
     return rows
 
 
 def results_table_html(summary: dict) -> str:
-    head = "<tr><th>Quantity</th><th>Value</th><th>Uncertainty</th><th>Unit</th><th>How it was obtained</th></tr>"
+    head = "<tr><th>Quantity</th><th>Value ± uncertainty</th><th>Unit</th><th>How it was obtained</th></tr>"
     body = "".join(
-        f"<tr><td>{esc(q)}</td><td class='num'>{esc(v)}</td><td class='num'>{esc(u)}</td>"
-        f"<td>{esc(un)}</td><td><small>{esc(h)}</small></td></tr>" for q, v, u, un, h in result_rows(summary))
+        f"<tr><td>{esc(q)}</td><td class='num'>{esc(v)}</td>"
+        f"<td>{esc(un)}</td><td><small>{esc(h)}</small></td></tr>" for q, v, un, h in result_rows(summary))
     return f"<table class='results'>{head}{body}</table>"
 
 
