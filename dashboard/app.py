@@ -26,6 +26,8 @@ body {{ background: {style.MIST}; }}
 .results th {{ text-align: left; border-bottom: 2px solid {style.INK}; padding: 4px 8px; }}
 .results td {{ border-bottom: 1px solid #dde3e6; padding: 4px 8px; vertical-align: top; }}
 .results td.num {{ font-variant-numeric: tabular-nums; white-space: nowrap; }}
+.results td:nth-child(3), .results th:nth-child(2) {{ white-space: nowrap; }}
+.results td:first-child {{ min-width: 13em; }}
 .badge {{ color: white; border-radius: 4px; padding: 1px 6px; font-size: 0.8em; font-weight: 600; }}
 .big-number {{ font-size: 1.5em; font-weight: 600; color: {style.INK}; }}
 .warning-text {{ color: {style.CLAY}; }}

@@ -408,13 +408,20 @@ class SessionState(param.Parameterized):
 
     def refit(self, *, scaling_range=None, divergence_range=None) -> bool:
         """Re-estimate with a user-chosen scaling range or divergence fit range."""
+        return self._refit(partial(analysis_mod.refit, scaling_range=scaling_range, divergence_range=divergence_range),
+                           "Estimates refitted over the range you chose.")
 
+    def detect_ranges(self) -> bool:
+        """Forget the chosen ranges: back to the detected scaling and divergence fit ranges."""
+        return self._refit(analysis_mod.detect_ranges, "Estimates back on the detected ranges.")
+
+    def _refit(self, method: Callable, done: str) -> bool:
         def work(progress, cancel):
             if self.analysis is None or self.analysis.results is None:
                 raise LagspaceError("run the analysis before adjusting its fit ranges")
-            new = analysis_mod.refit(self.analysis, scaling_range=scaling_range, divergence_range=divergence_range)
+            new = method(self.analysis)
             self._keys["analysis"] = _key(new.settings, 3)  # the chosen ranges are settings now
-            self._apply(analysis=new, settings=new.settings, message="Estimates refitted over the range you chose.")
+            self._apply(analysis=new, settings=new.settings, message=done)
 
         return self._run("Refitting", work)
 

@@ -205,18 +205,29 @@ def refit(analysis: Analysis, *, scaling_range=None, divergence_range=None) -> A
     (``Settings.scaling_range``, ``Settings.divergence_range``), so running the analysis
     again with them, e.g. from its bundle, gives the same Summary.
     """
-    if analysis.results is None:
-        raise LagspaceError("run the analysis before adjusting its fit ranges")
     changes = {k: v for k, v in (("scaling_range", scaling_range), ("divergence_range", _whole_steps(divergence_range)))
                if v is not None}
-    settings = analysis.settings.replace(**changes)  # validates the ranges
+    return _refitted(analysis, analysis.settings.replace(**changes),  # replace() validates the ranges
+                     scaling=scaling_range is not None, divergence=divergence_range is not None)
+
+
+def detect_ranges(analysis: Analysis) -> Analysis:
+    """Undo :func:`refit`: forget the chosen ranges and detect both again, as a fresh run does."""
+    return _refitted(analysis, analysis.settings.replace(scaling_range=None, divergence_range=None),
+                     scaling=True, divergence=True)
+
+
+def _refitted(analysis: Analysis, settings: Settings, scaling: bool, divergence: bool) -> Analysis:
+    """The analysis with the chosen estimates recomputed from its curves under ``settings``."""
+    if analysis.results is None:
+        raise LagspaceError("run the analysis before adjusting its fit ranges")
     res = analysis.results.copy()
     res.attrs = dict(analysis.results.attrs)
     m = int(res.attrs["embedding_dimension"])
     dt, unit = sampling_interval(analysis.prepared), time_unit(analysis.prepared)
-    if scaling_range is not None:
+    if scaling:
         res.attrs.update({k: json.dumps(v) for k, v in _correlation_estimates(res, m, settings.scaling_range, dt).items()})
-    if divergence_range is not None:
+    if divergence:
         res.attrs["largest_lyapunov_exponent"] = json.dumps(_lyapunov(res, m, settings.divergence_range, dt, unit))
     summary = summarise(analysis.prepared, analysis.diagnostics, res, settings)
     return replace(analysis, settings=settings, results=res, summary=summary)

@@ -147,6 +147,11 @@ def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
     fresh.get_by_text("3 · Invariants").first.click()
     assert _results(fresh) == first
 
+    # 7. back to the detected ranges: the estimates are no longer the user's
+    fresh.locator(".detected-ranges button").click()
+    fresh.locator(".detected-ranges").wait_for(state="hidden", timeout=60_000)
+    assert "set by the user" not in _results(fresh)
+
     assert problems == [] and fresh_problems == []
     page.close()
     fresh.close()

@@ -285,6 +285,10 @@ def test_refit_uses_the_chosen_range(analysed, lorenz):
     assert fit[0] >= steps[5] and fit[1] <= steps[40]
     rng = fresh.summary["correlation_dimension"]["scaling_range"]
     assert rng is None or (rng[0] >= lo * (1 - 1e-9) and rng[1] <= hi * (1 + 1e-9))
+    # back to the detected ranges: exactly the estimates of the run itself
+    assert fresh.detect_ranges(), fresh.error
+    assert fresh.settings.scaling_range is None and fresh.settings.divergence_range is None
+    assert fresh.summary == analysed.summary and fresh.analysis_current
     # a chosen range belongs to these curves: a new recording starts from detected ranges again
     assert fresh.load_bytes(csv_bytes(lorenz[:3000]), "next.csv"), fresh.error
     assert fresh.settings.scaling_range is None and fresh.settings.divergence_range is None

@@ -116,17 +116,21 @@ class InvariantsPage(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         st = self.state.settings
-        self._surrogates = pn.widgets.IntInput(label="Surrogates (19: one-sided test, 39: two-sided)",
-                                               value=st.surrogates, start=0, end=999, width=260,
-                                               css_classes=["surrogate-count"])
-        self._kind = pn.widgets.Select(label="Surrogate kind", value=st.surrogate_kind, width=260,
+        self._surrogates = pn.widgets.IntInput(
+            label="Surrogates", value=st.surrogates, start=0, end=999, width=150, css_classes=["surrogate-count"],
+            description="19 gives a one-sided test at the 5 % level, 39 a two-sided one (0: no test)")
+        self._kind = pn.widgets.Select(label="Surrogate kind", value=st.surrogate_kind, width=270,
                                        options={KIND_WORDS.get(k, k): k for k in SURROGATE_KINDS})
-        self._statistic = pn.widgets.Select(label="Test statistic", value=st.surrogate_statistic, width=260,
+        self._statistic = pn.widgets.Select(label="Test statistic", value=st.surrogate_statistic, width=230,
                                             options={STATISTIC_WORDS.get(k, k): k for k in SURROGATE_STATISTICS})
-        self._seed = pn.widgets.IntInput(label="Seed (for every random choice)", value=st.seed, start=0, width=260)
+        self._seed = pn.widgets.IntInput(label="Seed", value=st.seed, start=0, width=150,
+                                         description="the same seed gives the same surrogates and the same numbers")
         self._run = pn.widgets.Button(label="Run the analysis", color="primary", width=200, height=40,
                                       css_classes=["run-analysis"])
         self._run.on_click(self._on_run)
+        self._detected = pn.widgets.Button(label="Back to the detected ranges", width=230, visible=False,
+                                           css_classes=["detected-ranges"])
+        self._detected.on_click(self._on_detected)
         self._intro = pn.pane.HTML(sizing_mode="stretch_width")
         self._verdict = pn.pane.Alert("", alert_type="info", sizing_mode="stretch_width")
         self._table = pn.pane.HTML(sizing_mode="stretch_width")
@@ -146,6 +150,9 @@ class InvariantsPage(pn.viewable.Viewer):
         if await run(self.state, self.state.change_settings, **changes):
             await run(self.state, self.state.run_analysis)
 
+    async def _on_detected(self, event):
+        await run(self.state, self.state.detect_ranges)
+
     def _on_bounds(self, kind: str, boundsx=None, **_):
         if boundsx is None or None in boundsx or boundsx[0] == boundsx[1]:
             return
@@ -158,6 +165,8 @@ class InvariantsPage(pn.viewable.Viewer):
         s = self.state
         st = s.settings
         self._run.disabled = s.busy or s.prepared is None
+        self._detected.visible = s.analysis_current and (st.scaling_range, st.divergence_range) != (None, None)
+        self._detected.disabled = s.busy
         self._surrogates.value, self._kind.value = st.surrogates, st.surrogate_kind
         self._statistic.value, self._seed.value = st.surrogate_statistic, st.seed
         a = s.analysis
@@ -211,12 +220,12 @@ class InvariantsPage(pn.viewable.Viewer):
             self._drawn[name] = key
 
     def __panel__(self):
-        options = card("Surrogate test", pn.Row(self._surrogates, self._kind), pn.Row(self._statistic, self._seed),
+        options = card("Surrogate test", pn.FlexBox(self._surrogates, self._kind, self._statistic, self._seed),
                        sizing_mode="stretch_width")
         p = self._plots
         self._results_area.objects = [
             self._verdict,
-            card("Results", self._table, sizing_mode="stretch_width"),
+            card("Results", self._detected, self._table, sizing_mode="stretch_width"),
             card("Warnings", self._warnings, sizing_mode="stretch_width"),
             pn.Row(card("Local slopes (correlation dimension)", p["slopes"], sizing_mode="stretch_width"),
                    card("Correlation sums", p["sums"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
@@ -226,8 +235,7 @@ class InvariantsPage(pn.viewable.Viewer):
                    card("Recurrence plot", p["recurrence"], sizing_mode="stretch_width"), sizing_mode="stretch_width"),
         ]
         return pn.Column(
-            pn.Row(pn.Column(self._intro, self._run, sizing_mode="stretch_width"), options,
-                   sizing_mode="stretch_width"),
+            self._intro, options, self._run,
             self._results_area,
             pn.pane.Alert(CAUTION, alert_type="warning", sizing_mode="stretch_width"),
             sizing_mode="stretch_width")
