@@ -72,17 +72,23 @@ def project(points: np.ndarray, azimuth: float, elevation: float) -> np.ndarray:
 
 
 # -- labels -------------------------------------------------------------------------------------------
+def _unitless(units: str | None) -> bool:
+    return units in (None, "", "1")
+
+
+def _with_units(label: str, units: str | None) -> str:
+    """"radius (K)"; a dimensionless or unknown unit adds nothing."""
+    return label if _unitless(units) else f"{label} ({units})"
+
+
 def _signal_label(rec: xr.Dataset) -> str:
     name = variable_name(rec)
-    units = rec[name].attrs.get("units", "1")
-    return name if units in ("", "1") else f"{name} ({units})"
+    return _with_units(name, rec[name].attrs.get("units"))
 
 
 def _var_label(ds: xr.Dataset, var: str) -> str:
     attrs = ds[var].attrs
-    label = attrs.get("long_name", var.replace("_", " "))
-    units = attrs.get("units", "1")
-    return label if units in ("", "1") else f"{label} ({units})"
+    return _with_units(attrs.get("long_name", var.replace("_", " ")), attrs.get("units"))
 
 
 def _attr(ds, key, default=None):
@@ -227,9 +233,7 @@ def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layou
 # -- invariants ---------------------------------------------------------------------------------------
 def _coord_label(ds: xr.Dataset, dim: str, fallback: str) -> hv.Dimension:
     attrs = ds[dim].attrs if dim in ds.coords else {}
-    label = attrs.get("long_name", fallback)
-    units = attrs.get("units", "1")
-    return hv.Dimension(dim, label=label if units in ("", "1") else f"{label} ({units})")
+    return hv.Dimension(dim, label=_with_units(attrs.get("long_name", fallback), attrs.get("units")))
 
 
 def _per_dimension(ds: xr.Dataset, var: str, xdim: str, chosen: int | None, label: hv.Dimension,
@@ -356,9 +360,10 @@ def surrogate_histogram(results: xr.Dataset, summary: dict):
     return hv.Overlay(parts).opts(title=title, xlim=(lo - pad, hi + pad), xlabel=label, ylabel="surrogates")
 
 
-def recurrence_plot(results: xr.Dataset, pixels: int = 400):
+def recurrence_plot(results: xr.Dataset, pixels: int = 400, units: str = ""):
     """The recurrence plot as an image of the density of recurrent pairs (mirrored about the
-    diagonal), binned to at most ``pixels`` per side for the screen."""
+    diagonal), binned to at most ``pixels`` per side for the screen; ``units``: the signal's, for
+    the radius in the title."""
     if results is None or "recurrence_row" not in results:
         return _note("no recurrence plot")
     facts = _attr(results, "recurrence", {}) or {}
@@ -374,7 +379,8 @@ def recurrence_plot(results: xr.Dataset, pixels: int = 400):
     rate = facts.get("recurrence_rate")
     return img.opts(cmap=["#ffffff", style.INK], responsive=True, aspect=1, colorbar=False,
                     tools=["hover"], hooks=style.WHEEL_OFF, toolbar="right",
-                    title=f"{n:,} vectors, radius {_fmt(facts.get('radius'))}, rate {_fmt(rate, 2)}")
+                    title=f"{n:,} vectors, radius {_fmt(facts.get('radius'))}{'' if _unitless(units) else ' ' + units}, "
+                          f"rate {_fmt(rate, 2)}")
 
 
 def space_time(results: xr.Dataset, theiler: int | None):

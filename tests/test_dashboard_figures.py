@@ -117,6 +117,8 @@ def test_recurrence_image_is_the_symmetric_recurrence_matrix():
     assert img[12.5, 40.5] == shown[40, 12]                          # spot check through holoviews indexing
     assert np.array_equal(shown > 0, expected)
     assert hv.render(img) is not None
+    title = figures.recurrence_plot(ds, units="V").opts.get().kwargs["title"]
+    assert f"radius {radius:.3g} V," in title  # the radius is in the signal's units (maximum norm)
 
 
 def test_surrogate_histogram_counts_every_surrogate_and_marks_the_data():

@@ -11,7 +11,7 @@ import panel as pn
 import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
-from engine.summary import CAUTION, STATISTIC_WORDS, format_estimate
+from engine.summary import STATISTIC_WORDS, format_estimate
 
 from .. import figures
 from ..state import SessionState
@@ -49,7 +49,7 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
             how = (f"slope of the correlation sum over radii {number(rng[0], 3)} – {number(rng[1], 3)} "
                    f"{'' if sig_units in ('', '1') else sig_units}; "
                    + ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate")
-                   + (f". {how}" if how else ""))
+                   + (f". {how[:1].upper()}{how[1:]}" if how else ""))
         rows.append(("Correlation dimension D2", v, "(no unit)", how))
         ml = d2.get("maximum_likelihood")
         if ml:
@@ -72,7 +72,7 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
         fit = lle.get("fit_range")
         how = lle.get("reason") or ""
         if fit:
-            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how}" if how else "")
+            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how[:1].upper()}{how[1:]}" if how else "")
         rows.append(("Largest Lyapunov exponent", v, f"per {unit}", how))
         if unit != "sample" and lle.get("per_sample") is not None:
             v = _pm(lle, "per_sample", "uncertainty_per_sample")
@@ -94,6 +94,10 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
                      f"{STATISTIC_WORDS.get(test.get('statistic'), test.get('statistic'))}: {verdict}"))
     rec = summary.get("recurrence")
     if rec:
+        if rec.get("radius") is not None:
+            rows.append(("Recurrence radius", format_estimate(rec["radius"]), "(no unit)" if sig_units in ("", "1")
+                         else sig_units, f"chosen so that a fraction {number(rec.get('recurrence_rate'), 2)} of "
+                         "pairs recur (maximum norm)" if rec.get("recurrence_rate") is not None else ""))
         for key, label in (("recurrence_rate", "Recurrence rate"), ("determinism", "Determinism"),
                            ("laminarity", "Laminarity")):
             if key in rec:
@@ -202,7 +206,7 @@ class InvariantsPage(pn.viewable.Viewer):
             "divergence": (("largest_lyapunov_exponent", "embedding_dimension"), figures.divergence),
             "boxes": (("capacity_dimension",), figures.box_counting),
             "surrogates": (("surrogate_test",), figures.surrogate_histogram),
-            "recurrence": (("recurrence",), lambda r, _: figures.recurrence_plot(r)),
+            "recurrence": (("recurrence",), lambda r, s: figures.recurrence_plot(r, units=s["input"].get("units"))),
         }
         base = (a.settings.to_json(), json.dumps(summary.get("input"), sort_keys=True))
         for name, (parts, build) in builders.items():
@@ -237,5 +241,4 @@ class InvariantsPage(pn.viewable.Viewer):
         return pn.Column(
             self._intro, options, self._run,
             self._results_area,
-            pn.pane.Alert(CAUTION, alert_type="warning", sizing_mode="stretch_width"),
             sizing_mode="stretch_width")
