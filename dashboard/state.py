@@ -33,7 +33,7 @@ from engine import delay as delay_mod
 from engine.checks import check_recording
 from engine.diagnostics import estimate as estimate_diagnostics
 from engine.errors import Cancelled, LagspaceError
-from engine.loading import describe_source, load_recording
+from engine.loading import describe_and_load, load_recording
 from engine.preparation import prepare
 from engine.recording import json_attr
 from engine.settings import Settings
@@ -93,7 +93,7 @@ class SessionState(param.Parameterized):
 
     source_name = param.String(default="", doc="file name of the recording or bundle")
     pending = param.Dict(default=None, allow_None=True,
-                         doc="what describe_source said of a file that needs a choice before loading")
+                         doc="what engine.loading.describe_and_load said of a file that needs a choice before loading")
     raw = param.Parameter(default=None, doc="the Recording as loaded")
     prepared = param.Parameter(default=None, doc="the Recording after the preparation settings")
     checks = param.List(default=[], doc="findings of check_recording on what is shown")
@@ -238,14 +238,13 @@ class SessionState(param.Parameterized):
         data = data.encode("utf-8") if isinstance(data, str) else bytes(data)
 
         def work(progress, cancel):
-            info = describe_source(data, name=name, **self.limits)
-            if info.get("needs_variable") and variable is None:
+            options = dict(variable=variable, time_column=time_column)
+            info, rec = describe_and_load(data, name=name, **options, **self.limits)
+            if rec is None:
                 self._data = data
                 self._apply(pending=dict(info, name=name), message=(
                     f"{name} holds several variables: choose which one to analyse."))
                 return
-            options = dict(variable=variable, time_column=time_column)
-            rec = load_recording(data, name=name, **options, **self.limits)
             # a fitted range belongs to the old recording's curves; other invariant settings carry over
             keep = {f: getattr(self.settings, f) for f in INVARIANTS
                     if f not in ("scaling_range", "divergence_range")}

@@ -136,7 +136,26 @@ def load_recording(
     interval = _check_interval(sampling_interval)
     data, base = _read_source(source, name, max_bytes)
     contents = _parse(data, base, time_column, max_samples, _check_timeout(netcdf4_timeout))
-    s = _choose(contents, channel if channel is not None else variable)
+    return _recording(contents, data, base, channel if channel is not None else variable, interval, max_samples)
+
+
+def describe_and_load(source, *, name: str | None = None, variable: str | int | None = None,
+                      time_column: str | int | None = None, max_bytes: int = 200_000_000,
+                      max_samples: int = 10_000_000, netcdf4_timeout: float = NETCDF4_TIMEOUT):
+    """(:func:`describe_source`, :func:`load_recording`) from one reading of the file (a NetCDF4
+    file costs a child process per reading). The Recording is None when the file needs a
+    ``variable`` and none was given."""
+    data, base = _read_source(source, name, max_bytes)
+    contents = _parse(data, base, time_column, max_samples, _check_timeout(netcdf4_timeout))
+    info = _description(contents)
+    if info["needs_variable"] and variable is None:
+        return info, None
+    return info, _recording(contents, data, base, variable, None, max_samples)
+
+
+def _recording(contents: _Contents, data: bytes, base: str, variable, interval, max_samples) -> xr.Dataset:
+    """The Recording of the chosen channel of parsed ``contents``."""
+    s = _choose(contents, variable)
     if s.values.size > max_samples:
         raise RecordingError(
             f"{base} holds {s.values.size} samples, more than the limit of {max_samples}: "
@@ -168,7 +187,10 @@ def describe_source(source, *, name: str | None = None, max_bytes: int = 200_000
     those of :func:`load_recording`.
     """
     data, base = _read_source(source, name, max_bytes)
-    contents = _parse(data, base, None, max_samples, _check_timeout(netcdf4_timeout))
+    return _description(_parse(data, base, None, max_samples, _check_timeout(netcdf4_timeout)))
+
+
+def _description(contents: _Contents) -> dict:
     return {
         "format": contents.format,
         "variables": [s.name for _, s in contents.series],

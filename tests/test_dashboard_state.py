@@ -377,3 +377,21 @@ def test_uploaded_names_are_never_paths(lorenz, tmp_path, monkeypatch, name, dow
     s.bundle_bytes()
     assert s.bundle_filename == download
     assert [p for p in tmp_path.rglob("*") if p.is_file()] == []
+
+
+def test_a_netcdf4_upload_is_read_once(lorenz, monkeypatch):
+    """Each NetCDF4 reading costs a child process (about a second): loading asks for one."""
+    import xarray as xr
+
+    from engine import loading
+
+    calls = []
+    real = loading._netcdf4_in_child
+    monkeypatch.setattr(loading, "_netcdf4_in_child", lambda *a, **k: calls.append(1) or real(*a, **k))
+    two = xr.Dataset({"x": ("time", lorenz), "y": ("time", lorenz[::-1].copy())},
+                     coords={"time": 0.01 * np.arange(lorenz.size)})
+    s = SessionState()
+    assert s.load_bytes(bytes(two[["x"]].to_netcdf(engine="h5netcdf")), "one.nc"), s.error
+    assert len(calls) == 1 and s.raw.sizes["time"] == lorenz.size
+    assert s.load_bytes(bytes(two.to_netcdf(engine="h5netcdf")), "two.nc") and s.pending["variables"] == ["x", "y"]
+    assert len(calls) == 2

@@ -153,6 +153,10 @@ def test_netcdf_both_kinds(tmp_path, x, engine, magic):
     np.testing.assert_allclose(signal(rec), 300 + x, rtol=1e-14)
     assert rec["temperature"].attrs["units"] == "K" and rec.attrs["format"] == "netcdf"
     assert sampling_interval(rec) == pytest.approx(0.1) and time_unit(rec) == "s"
+    # one reading for both answers: the same description, the same Recording
+    assert loading.describe_and_load(path) == (info, None)
+    both, chosen = loading.describe_and_load(path, variable="temperature")
+    assert both == info and chosen.identical(rec)
     from_bytes = load_recording(path.read_bytes(), name="upload/dir/loop.nc", variable=0)
     assert from_bytes.attrs["source"] == "loop.nc"
     np.testing.assert_array_equal(signal(from_bytes), signal(rec))
