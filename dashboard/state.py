@@ -116,6 +116,7 @@ class SessionState(param.Parameterized):
         self._data: Optional[bytes] = None           # bytes of the loaded file (None after a bundle)
         self._load_options: dict = {}
         self._keys: dict = {}                        # stage name -> settings key it was computed with
+        self._spectrum: tuple = (None, None)         # (prepared recording, its power spectrum)
         self._lock = threading.Lock()
         self._cancel = threading.Event()
         self._task = ""
@@ -143,7 +144,9 @@ class SessionState(param.Parameterized):
     def spectrum(self):
         """(power spectrum dataset or None, dominant period dict or None) of the prepared recording,
         from ``engine.delay.power_spectrum`` (in the recording's units) and the diagnostics."""
-        spec = None if self.prepared is None else delay_mod.power_spectrum(self.prepared)
+        if self._spectrum[0] is not self.prepared:  # once per prepared recording
+            self._spectrum = (self.prepared, None if self.prepared is None else delay_mod.power_spectrum(self.prepared))
+        spec = self._spectrum[1]
         dominant = None if self.diagnostics is None else json_attr(self.diagnostics, "dominant_period")
         return spec, dominant
 
@@ -193,7 +196,7 @@ class SessionState(param.Parameterized):
         """The browser session ended: stop its work and let go of its data and results
         (quietly: no page is left to update)."""
         self.cancel()
-        self._data, self._load_options, self._keys = None, {}, {}
+        self._data, self._load_options, self._keys, self._spectrum = None, {}, {}, (None, None)
         with param.discard_events(self):
             self.param.update(source_name="", pending=None, raw=None, prepared=None, checks=[],
                               diagnostics=None, analysis=None)

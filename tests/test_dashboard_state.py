@@ -395,3 +395,11 @@ def test_a_netcdf4_upload_is_read_once(lorenz, monkeypatch):
     assert len(calls) == 1 and s.raw.sizes["time"] == lorenz.size
     assert s.load_bytes(bytes(two.to_netcdf(engine="h5netcdf")), "two.nc") and s.pending["variables"] == ["x", "y"]
     assert len(calls) == 2
+
+
+def test_spectrum_is_computed_once_per_prepared_recording(loaded):
+    spec, _ = loaded.spectrum()
+    assert loaded.spectrum()[0] is spec
+    assert loaded.change_settings(crop_start=0.0, crop_stop=20.0), loaded.error
+    cropped, _ = loaded.spectrum()
+    assert cropped is not spec and cropped["frequency"].size < spec["frequency"].size
