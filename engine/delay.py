@@ -29,6 +29,7 @@ MAX_BINS = 128
 STRONG_PEAK = 0.5  # fraction of power in the spectral peak above which a period counts as strong
 PERIOD_TOLERANCE = 0.1  # warn when the delay is within 10 % of a multiple of the half-period
 MINIMUM_WINDOW = 2  # a minimum must be the lowest value within +-2 lags
+TONE_PEAK = 0.95  # fraction of power in one peak above which a signal is treated as a tone (Roessler: 0.87)
 SHALLOW = 0.1  # a minimum below this fraction of the lag-1 value is flagged as shallow
 NOISE_FACTOR = 3.0  # standard deviations that make a level or a rise "clear"
 
@@ -269,7 +270,11 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
     linear processes and maps), the first lag at which the autocorrelation drops
     below 1/e is used; for maps that is usually 1. Without either, the delay is
     null with a reason. ``dominant`` (from :func:`dominant_period`) adds a warning
-    when the delay is near a multiple of half a strong period.
+    when the delay is near a multiple of half a strong period. A near-pure tone
+    (over 95 % of the power in one peak) gets a quarter period, the first zero of
+    the autocorrelation: its binned mutual information has spurious minima at
+    small lags, and at a quarter period the delay plot opens into a circle
+    (analytic for a sine: cos(2 pi tau / T) = 0 at tau = T / 4).
 
     References
     ----------
@@ -285,7 +290,15 @@ def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0,
     alternatives = {"autocorrelation_first_zero": times["first_zero"], "autocorrelation_one_over_e": times["one_over_e"]}
     warnings = []
     lag, floor_lag = _first_clear_minimum(m, facts)
-    if lag is not None:
+    strength = (dominant or {}).get("strength")
+    if (dominant or {}).get("samples") and (strength or 0.0) >= TONE_PEAK and times["first_zero"] is not None:
+        lag, method = times["first_zero"], "quarter period (autocorrelation first zero)"
+        reason = (f"{strength:.0%} of the power is in one spectral peak (period {dominant['samples']:.4g} samples): for "
+                  f"so nearly periodic a signal the mutual information's minima come from its binning, so a quarter "
+                  f"period is used, where the autocorrelation first crosses zero, {_lag_text(lag, dt, time_unit)}")
+        warnings.append("the signal is nearly a pure tone: expect a correlation dimension near 1 and a largest "
+                        "Lyapunov exponent near 0; its invariants say little beyond its period")
+    elif lag is not None:
         method = "first minimum of mutual information"
         reason = (f"the mutual information has its first clear minimum at lag {_lag_text(lag, dt, time_unit)} "
                   f"where it is {m[lag]:.3g} nats, down from {m[1]:.3g} at lag 1")

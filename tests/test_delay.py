@@ -206,3 +206,14 @@ def test_bad_arguments_raise_one_line_errors(call):
     with pytest.raises(LagspaceError) as info:
         call()
     assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("period", [50, 100, 200])
+def test_pure_tone_delay_is_a_quarter_period(period):
+    # Analytic: the autocorrelation of a sine, cos(2 pi k / T), first crosses zero at k = T / 4, where the
+    # delay plot of sin against its delayed copy is a circle. (Binned mutual information has spurious
+    # minima at a few lags for a pure tone: 2 to 5 samples here before this rule.)
+    s = suggestion(systems.sine(5000, period), 2 * period)
+    assert s["method"] == "quarter period (autocorrelation first zero)"
+    assert abs(s["samples"] - period / 4) <= 1
+    assert any("pure tone" in w for w in s["warnings"])
