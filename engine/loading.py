@@ -53,12 +53,15 @@ _SECONDS = {
     "min": 60.0, "minute": 60.0, "minutes": 60.0,
     "h": 3600.0, "hr": 3600.0, "hour": 3600.0, "hours": 3600.0,
     "d": 86400.0, "day": 86400.0, "days": 86400.0,
+    "wk": 604800.0, "week": 604800.0, "weeks": 604800.0,
 }
+# calendar units of varying length in seconds: kept as they are, not converted
+_CALENDAR = {"yr": "year", "year": "year", "years": "year", "month": "month", "months": "month"}
 # units accepted as a name suffix, as in "strain_ue" or "time_ms"
 _SUFFIX_UNITS = {"s", "ms", "us", "ns", "min", "h", "ue", "uV", "mV", "V", "mA", "K", "degC",
                  "Pa", "kPa", "hPa", "mbar", "bar", "mm", "um", "nm", "g", "Hz", "rpm"}
 _TIME_NAMES = {"time", "t", "times", "timestamp", "timestamps", "datetime", "date", "seconds",
-               "secs", "sec", "elapsed", "elapsed_time", "clock"}
+               "secs", "sec", "elapsed", "elapsed_time", "clock", "year", "years", "month", "months"}
 _INDEX_NAMES = {"sample", "samples", "index", "idx", "n", "i", "sample_number", "step"}
 _DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
 _WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\[\(\]\)]*[\]\)])?|[\[\(][^\[\(\]\)]*[\]\)]")  # linear: no nesting
@@ -354,6 +357,8 @@ def _time_factor(units: str):
     u = units.strip()
     if u.lower() in _SECONDS:
         return _SECONDS[u.lower()], "s"
+    if u.lower() in _CALENDAR:
+        return 1.0, _CALENDAR[u.lower()]
     if u.lower() in _INDEX_NAMES:
         return 1.0, "sample"
     return 1.0, (u or "unknown")
@@ -558,7 +563,7 @@ def _table(columns, fmt: str, time_column, base: str, words: str = "") -> _Conte
         if chosen[2] == "date":
             time_unit = "s"
         else:
-            factor, time_unit = _time_factor(units or (stem if stem.lower() in _SECONDS else ""))
+            factor, time_unit = _time_factor(units or (stem if stem.lower() in {**_SECONDS, **_CALENDAR} else ""))
             if not units and (stem.lower() in _INDEX_NAMES or not chosen[1] and np.all(np.diff(time) == 1)):
                 time_unit = "sample"  # a sample counter
             time = time * factor

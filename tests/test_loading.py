@@ -122,6 +122,19 @@ def test_names_then_units_rows():
     assert rec["temp"].attrs["units"] == "K" and time_unit(rec) == "s"
 
 
+def test_yearly_column_gives_years(tmp_path):
+    # Open data shipped in statsmodels: yearly sunspot numbers 1700-2008 in columns YEAR, SUNACTIVITY.
+    from statsmodels.datasets import sunspots
+
+    path = tmp_path / "sunspots.csv"
+    sunspots.load_pandas().data.to_csv(path, index=False)
+    rec = load_recording(path)
+    assert variable_name(rec) == "SUNACTIVITY" and rec.sizes["time"] == 309
+    # a year has no fixed length in seconds: it stays the time unit, one sample per year
+    assert time_unit(rec) == "year" and sampling_interval(rec) == 1.0
+    assert rec["time"].values[0] == 1700.0 and signal(rec)[0] == 5.0
+
+
 def test_first_column_increasing_is_time():
     t = np.cumsum(np.full(600, 0.5))
     data = "\n".join(f"{a},{b}" for a, b in zip(t, white_noise(600))).encode()
