@@ -22,7 +22,7 @@ from .arguments import as_series, positive_number, whole_number
 from .errors import LagspaceError
 from .kernels.delay import lagged_mutual_information
 from .recording import sampling_interval as recording_interval
-from .recording import series_units
+from .recording import duration_text, series_units
 from .recording import time_unit as recording_time_unit
 
 MAX_BINS = 128
@@ -256,7 +256,7 @@ def _first_clear_minimum(m: np.ndarray, facts: dict):
 
 def _lag_text(lag: int, dt: float, time_unit: str) -> str:
     unit = str(time_unit)
-    return f"{lag}" if unit == "sample" else f"{lag} ({lag * dt:.4g} {unit})"
+    return f"{lag}" if unit == "sample" else f"{lag} ({duration_text(lag * dt, unit)})"
 
 
 def suggest_delay(ami_ds, acf_ds, dominant=None, sampling_interval: float = 1.0, time_unit: str = "sample") -> dict:

@@ -25,6 +25,7 @@ from .errors import LagspaceError
 from .kernels.divergence import kantz_kernel, rosenstein_kernel
 from .kernels.neighbours import nearest_neighbours, neighbours_within, radius_for_count_kernel
 from .progress import Stage
+from .recording import duration_text
 
 # automatic Kantz radius: the median reference point has about this many neighbours. Small
 # neighbourhoods start from small separations and so give the longest range of exponential
@@ -307,7 +308,7 @@ def _estimate(div_ds, name, m, fit_range, dt, unit):
         out["lyapunov_time"] = 1.0 / lam
     out["reason"] = (
         f"{method} divergence at dimension {m}: {how}, steps {int(kk[0])} to {int(kk[-1])} "
-        f"({kk[0] * dt:g} to {kk[-1] * dt:g} {unit}); slope {slope:.4g} per sample = {lam:.4g} per {unit}. "
+        f"({kk[0] * dt:g} to {duration_text(kk[-1] * dt, unit)}); slope {slope:.4g} per sample = {lam:.4g} per {unit}. "
         f"The uncertainty combines the fit's standard error, the spread over dimensions {used} and the "
         "difference between the slopes of the range's two halves.")
     return out

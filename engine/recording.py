@@ -88,6 +88,16 @@ def time_unit(rec: xr.Dataset) -> str:
     return str(rec.attrs.get("time_unit", "sample"))
 
 
+WORD_UNITS = ("sample", "year", "month")  # time units written as words, plural when not one
+
+
+def duration_text(value, unit: str) -> str:
+    """A duration with its unit: "0.05 s", "3 years", "1 sample"."""
+    unit = str(unit)
+    plural = unit in WORD_UNITS and float(value) != 1.0
+    return f"{float(value):.4g} {unit}{'s' if plural else ''}"
+
+
 def json_attr(ds: xr.Dataset, key: str, default=None):
     """Read a JSON-encoded attribute (``default`` when absent)."""
     text = ds.attrs.get(key)

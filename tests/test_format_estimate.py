@@ -53,3 +53,20 @@ def test_verdict_and_text_use_plain_words_and_rounded_numbers(statistic, words):
     assert "D2 = 2.044 ± 0.051" in text and "0.880 ± 0.027 per s" in text
     printed = format_text(s)
     assert "2.044 ± 0.051" in printed and "capacity dim.   n/a" in printed
+
+
+def test_durations_name_their_unit_in_the_plural_when_due():
+    # English usage: "1 sample", "3 years"; symbols such as "s" take no plural (SI Brochure, 9th ed., 5.4.3).
+    from engine.recording import duration_text
+
+    assert duration_text(1, "sample") == "1 sample" and duration_text(4, "sample") == "4 samples"
+    assert duration_text(3, "year") == "3 years" and duration_text(0.05, "s") == "0.05 s"
+    summary = dict(_summary(), verdict="v")
+    summary["input"]["time_unit"], summary["input"]["sampling_interval"] = "sample", 1.0
+    summary["delay"] = {"samples": 4, "time": 4.0, "reason": "r"}
+    text = format_text(summary)
+    assert "delay           4 samples  -- r" in text and "4 sample\n" not in text
+    summary["input"]["time_unit"] = "year"
+    assert "4 samples = 4 years" in format_text(summary) and "every 1 year)" in format_text(summary)
+    summary["largest_lyapunov_exponent"] = {"per_time_unit": None}
+    assert "largest exp.    n/a\n" in format_text(summary)

@@ -11,6 +11,7 @@ import panel as pn
 import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
+from engine.recording import duration_text
 from engine.summary import STATISTIC_WORDS, format_estimate
 
 from .. import figures
@@ -26,20 +27,23 @@ def _pm(est: dict | None, key: str = "value", unc: str = "uncertainty") -> str:
     return "n/a" if not est else format_estimate(est.get(key), est.get(unc))
 
 
+def _in_time(label: str, lag: dict, unit: str) -> str:
+    """"samples (= 1.1 s)": a lag's unit with its length in time (none when time is in samples)."""
+    return label if unit == "sample" or lag.get("time") is None else f"{label} (= {duration_text(lag['time'], unit)})"
+
+
 def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
     """(quantity, value ± uncertainty, unit, how it was obtained) for the results table."""
     unit = summary.get("input", {}).get("time_unit", "sample")
     sig_units = summary.get("input", {}).get("units", "1")
     rows = []
     d = summary.get("delay") or {}
-    rows.append(("Delay", f"{d.get('samples')}", "samples" + ("" if unit == "sample" else
-                 f" (= {number(d.get('time'))} {unit})"), d.get("reason", "")))
+    rows.append(("Delay", f"{d.get('samples')}", _in_time("samples", d, unit), d.get("reason", "")))
     m = summary.get("embedding_dimension") or {}
     rows.append(("Embedding dimension", f"{m.get('value')}", "", m.get("reason", "")))
     w = summary.get("theiler_window")
     if w:
-        rows.append(("Theiler window", f"{w.get('samples')}", "samples" + ("" if unit == "sample" else
-                     f" (= {number(w.get('time'))} {unit})"), w.get("reason") or ""))
+        rows.append(("Theiler window", f"{w.get('samples')}", _in_time("samples", w, unit), w.get("reason") or ""))
     d2 = summary.get("correlation_dimension")
     if d2 is not None:
         v = _pm(d2)
