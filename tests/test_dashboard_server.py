@@ -161,3 +161,28 @@ def test_ended_session_lets_go_of_its_data():
     for callback in callbacks:
         callback(None)
     assert state.raw is None and state.prepared is None and state._data is None and state._cancel.is_set()
+
+
+def test_pages_rendered_in_a_document_survive_plots_coming_and_going():
+    """Rendered pages (as in a served session) must take diagnostics appearing and disappearing.
+    Panel 1.9.4 fails when a drawn HoloViews pane is hidden (TypeError: Bokeh stylesheets copied into
+    a str list); that once aborted the page update after a refused file or a bundle."""
+    from bokeh.document import Document
+    from panel.io.state import set_curdoc
+
+    import systems
+    from dashboard.app import build_app
+
+    doc = Document()
+    x = systems.lorenz(3000, dt=0.01)
+    good = ("time_s,x_V\n" + "\n".join(f"{0.01 * i:.2f},{v:.9g}" for i, v in enumerate(x))).encode()
+    with set_curdoc(doc):
+        app = build_app()
+        app.server_doc(doc)
+        state = app.session_state
+        assert state.load_bytes(good, "x.csv") and state.estimate(), state.error
+        bundle = state.bundle_bytes()
+        assert state.load_bytes(b"1.0\n" * 2000, "constant.csv"), state.error   # the plots go
+        assert state.diagnostics is None and state.error == ""
+        assert state.open_bundle(bundle, "x-lagspace.zip"), state.error         # and come back
+        assert state.diagnostics is not None and state.error == ""

@@ -62,6 +62,7 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._view3d = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._multiples = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._space_time = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._curves_area = pn.Column(sizing_mode="stretch_width", visible=False)
         self._space_time_text = pn.pane.HTML(sizing_mode="stretch_width")
         self._theiler_in = pn.widgets.IntInput(label="Use this Theiler window (samples)", start=0, value=None,
                                                width=240)
@@ -112,8 +113,8 @@ class EmbeddingPage(pn.viewable.Viewer):
             self._intro.object = ("<p>Suggestions come from the curves below; each has its reason. "
                                   "Override them only with a reason of your own.</p>")
         self._estimate.visible = rec is not None and (diag is None or not s.diagnostics_current)
-        for pane in (self._delay_curves, self._dim_curves, self._delay_plot, self._view3d, self._multiples):
-            pane.visible = diag is not None
+        # a Column, not the HoloViews panes: hiding those trips Panel 1.9 (Bokeh stylesheets copied into a str list)
+        self._curves_area.visible = diag is not None
         if diag is None:
             self._delay_text.object = self._dim_text.object = ""
             return
@@ -143,8 +144,8 @@ class EmbeddingPage(pn.viewable.Viewer):
 
     def _show_space_time(self, *events):
         a = self.state.analysis
-        self._space_time.visible = a is not None and a.results is not None
         if a is None or a.results is None:
+            self._space_time.object, self._space_time_key = None, None
             self._space_time_text.object = ("<p>The space-time separation plot and the Theiler window are "
                                             "computed with the invariants: press Run on page 3.</p>")
             return
@@ -162,17 +163,21 @@ class EmbeddingPage(pn.viewable.Viewer):
                           sizing_mode="stretch_width")
         dim_card = card("Embedding dimension", self._dim_text, pn.Row(self._dim_in, self._dim_use, self._dim_back),
                         sizing_mode="stretch_width")
-        return pn.Column(
-            pn.Row(self._intro, self._estimate, sizing_mode="stretch_width"),
-            pn.Row(delay_card, dim_card, sizing_mode="stretch_width"),
+        self._curves_area.objects = [
             pn.Row(card("Mutual information and autocorrelation", self._delay_curves, sizing_mode="stretch_width"),
                    card("False nearest neighbours and Cao's test", self._dim_curves, sizing_mode="stretch_width"),
                    sizing_mode="stretch_width"),
             pn.Row(card("Delay plot", self._delay_plot, sizing_mode="stretch_width"),
-                   card("3-D view (turn and tilt it with the sliders)", self._view3d, pn.Row(self._turn, self._tilt), sizing_mode="stretch_width"),
+                   card("3-D view (turn and tilt it with the sliders)", self._view3d, pn.Row(self._turn, self._tilt),
+                        sizing_mode="stretch_width"),
                    sizing_mode="stretch_width"),
             card("The same plot at other delays: too short a delay squeezes the cloud onto the diagonal, "
                  "too long a delay smears it", self._multiples, sizing_mode="stretch_width"),
+        ]
+        return pn.Column(
+            pn.Row(self._intro, self._estimate, sizing_mode="stretch_width"),
+            pn.Row(delay_card, dim_card, sizing_mode="stretch_width"),
+            self._curves_area,
             card("Space-time separation and Theiler window", self._space_time_text, self._space_time,
                  pn.Row(self._theiler_in, self._theiler_use, self._theiler_back), sizing_mode="stretch_width"),
             sizing_mode="stretch_width")

@@ -13,7 +13,6 @@ from ..server import demo_files
 from ..state import SessionState
 from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run, with_unit
 
-ACCEPTED = [".csv", ".tsv", ".txt", ".nc", ".npy", ".wav"]
 NO_TIME = "(none: evenly sampled)"
 FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Fill the short gaps"}
 STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "short gaps interpolated",
@@ -38,7 +37,7 @@ class RecordingPage(pn.viewable.Viewer):
         super().__init__(**params)
         s = self.state
         megabytes = max(1, s.limits["max_bytes"] // 1_000_000)
-        self._dropper = pn.widgets.FileDropper(accepted_filetypes=ACCEPTED, multiple=False,
+        self._dropper = pn.widgets.FileDropper(multiple=False,  # any type: the engine names what it cannot read
                                                max_file_size=f"{megabytes}MB", sizing_mode="stretch_width",
                                                height=110)
         self._limits_note = pn.pane.HTML(
