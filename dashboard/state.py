@@ -72,6 +72,7 @@ def _key(settings: Settings, upto: int) -> tuple:
 
 
 DEFAULT_LIMITS = {"max_bytes": 200_000_000, "max_samples": 10_000_000}
+MAX_CHOICES = 200  # channels a file may offer for the user to choose one from a list
 BUNDLE_INFLATION = 10  # a bundle may inflate to this many times the upload limit (results beside the data)
 
 
@@ -243,6 +244,10 @@ class SessionState(param.Parameterized):
         def work(progress, cancel):
             options = dict(variable=variable, time_column=time_column)
             info, rec = describe_and_load(data, name=name, **options, **self.limits)
+            if rec is None and len(info["variables"]) > MAX_CHOICES:
+                raise LagspaceError(f"{name} holds {len(info['variables'])} channels, too many to choose from here "
+                                    f"(at most {MAX_CHOICES}): save the channel you want in a file of its own, "
+                                    "or use `lagspace analyze --variable N`")
             if rec is None:
                 self._data = data
                 self._apply(pending=dict(info, name=name), message=(
@@ -254,6 +259,10 @@ class SessionState(param.Parameterized):
             settings = Settings(variable=None if variable is None else str(variable),
                                 sampling_interval=sampling_interval, **keep)
             prepared, checks = self._prepare(rec, settings)
+            if prepared is None and not any(self.fix_changes(c, settings) for c in checks if c.get("severity") == "refuse"):
+                first = next(c for c in checks if c.get("severity") == "refuse")
+                raise LagspaceError(f"{name} cannot be analysed: {first['message']}"
+                                    + (f"; {first['fix']}" if first.get("fix") else ""))
             self._data, self._load_options = data, options
             self._keys = {"prepared": _key(settings, 1)}
             self._apply(source_name=name, pending=None, raw=rec, prepared=prepared, checks=checks,
@@ -334,22 +343,24 @@ class SessionState(param.Parameterized):
 
         return self._run("Applying the settings", work)
 
-    def fix_changes(self, finding: dict) -> Optional[dict]:
-        """The settings changes of a finding's one-click fix (None: no such fix, or already made).
+    def fix_changes(self, finding: dict, settings: Optional[Settings] = None) -> Optional[dict]:
+        """The settings changes of a finding's one-click fix (None: no such fix, or already made
+        in ``settings``, by default the session's).
 
         Uneven sampling is fixed by resampling; missing values by interpolation when every
         run is inside the series and no longer than ``settings.max_gap``. Other findings are
         fixed by hand (crop, another channel, a new recording), as their text says.
         """
+        settings = settings or self.settings
         details = finding.get("details") or {}
         code = finding.get("code")
         changes = None
         if code == "uneven_sampling":
             changes = {"resample": True}
         elif code == "not_finite" and not details.get("at_edge") \
-                and details.get("longest_run", 0) <= self.settings.max_gap:
+                and details.get("longest_run", 0) <= settings.max_gap:
             changes = {"fill_gaps": True}
-        if not changes or all(getattr(self.settings, k) == v for k, v in changes.items()):
+        if not changes or all(getattr(settings, k) == v for k, v in changes.items()):
             return None
         return changes
 

@@ -182,7 +182,9 @@ def test_pages_rendered_in_a_document_survive_plots_coming_and_going():
         state = app.session_state
         assert state.load_bytes(good, "x.csv") and state.estimate(), state.error
         bundle = state.bundle_bytes()
-        assert state.load_bytes(b"1.0\n" * 2000, "constant.csv"), state.error   # the plots go
-        assert state.diagnostics is None and state.error == ""
+        gap = ("time_s,x_V\n" + "\n".join(f"{0.01 * i + 0.5 * (i >= 1000):.2f},{v:.9g}"  # uneven time:
+                                            for i, v in enumerate(x))).encode()  # refused until resampled
+        assert state.load_bytes(gap, "gap.csv"), state.error                    # the plots go
+        assert state.diagnostics is None and state.refusals and state.error == ""
         assert state.open_bundle(bundle, "x-lagspace.zip"), state.error         # and come back
         assert state.diagnostics is not None and state.error == ""

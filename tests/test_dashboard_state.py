@@ -79,6 +79,21 @@ def test_bad_file_keeps_what_was_loaded(loaded):
     assert loaded.raw is before and loaded.source_name == "lorenz.csv"
 
 
+def test_file_no_click_can_fix_keeps_what_was_loaded(loaded):
+    """A constant signal is refused by the checks with no one-click fix: it must not replace the
+    analysable recording (issue 6); a fixable one (uneven time) loads, to be fixed with one click."""
+    before = loaded.raw
+    assert not loaded.load_bytes(b"1.0\n" * 2000, "constant.csv")
+    assert "constant.csv cannot be analysed" in loaded.error and "\n" not in loaded.error
+    assert loaded.raw is before and loaded.source_name == "lorenz.csv"
+    x = signal(before)
+    t = 0.01 * np.arange(x.size)
+    t[1000:] += 0.5
+    uneven = ("time_s,x_V\n" + "\n".join(f"{a:.6f},{v:.9g}" for a, v in zip(t, x))).encode()
+    assert loaded.load_bytes(uneven, "gap.csv") and loaded.source_name == "gap.csv"
+    assert [loaded.fix_changes(c) for c in loaded.refusals] == [{"resample": True}]
+
+
 def test_crop_recomputes_preparation_and_rejects_impossible_crops(loaded):
     t = loaded.raw["time"].values
     assert loaded.change_settings(crop_start=5.0, crop_stop=25.0), loaded.error
@@ -403,3 +418,14 @@ def test_spectrum_is_computed_once_per_prepared_recording(loaded):
     assert loaded.change_settings(crop_start=0.0, crop_stop=20.0), loaded.error
     cropped, _ = loaded.spectrum()
     assert cropped is not spec and cropped["frequency"].size < spec["frequency"].size
+
+
+def test_too_many_channels_to_list_is_one_line(loaded):
+    # a .wav header may claim thousands of channels (test_hostile_inputs builds one with 3000)
+    from test_hostile_inputs import RECORDINGS
+
+    name, make, _ = RECORDINGS[".wav of 3000 channels"]
+    before = loaded.raw
+    assert not loaded.load_bytes(make(None), name)
+    assert "3000 channels, too many" in loaded.error and "--variable" in loaded.error
+    assert loaded.pending is None and loaded.raw is before
