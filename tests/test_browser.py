@@ -5,23 +5,14 @@ The server runs in a subprocess on a free port. Skips only when Chromium is miss
 """
 
 import os
-import socket
-import subprocess
-import sys
-import time
-import urllib.request
 import zipfile
-from pathlib import Path
 
 import pytest
 from playwright.sync_api import sync_playwright
 
 import systems
+from served import ARGS, CHROMIUM, dashboard
 
-CHROMIUM = "/usr/bin/chromium"
-ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-        "--disable-sync", "--no-first-run", "--disable-quic"]
-ROOT = Path(__file__).resolve().parent.parent
 BUNDLE_MEMBERS = {"manifest.json", "recording.nc", "diagnostics.nc", "results.nc", "settings.json",
                   "summary.json", "report.html"}
 
@@ -30,36 +21,12 @@ if not os.path.exists(CHROMIUM) and not os.environ.get("CI"):
     pytestmark.append(pytest.mark.skip(reason="no Chromium at /usr/bin/chromium (install it: see BROWSER.md)"))
 
 
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 @pytest.fixture(scope="module")
-def server():
-    port = _free_port()
-    proc = subprocess.Popen(
-        [sys.executable, "-c", f"from dashboard.server import serve; serve(port={port})"],
-        cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    url = f"http://127.0.0.1:{port}/"
-    deadline = time.monotonic() + 90
-    while True:
-        try:
-            urllib.request.urlopen(url, timeout=2)
-            break
-        except OSError:
-            if proc.poll() is not None or time.monotonic() > deadline:
-                proc.kill()
-                raise RuntimeError(f"dashboard server did not start:\n{proc.stdout.read()}")
-            time.sleep(0.5)
-    yield url
-    proc.terminate()
-    try:
-        proc.wait(10)
-    except subprocess.TimeoutExpired:
-        proc.kill()
+def server(tmp_path_factory):
+    """The dashboard's URL; its log is ``server.log`` beside it (see ``served.dashboard``)."""
+    log = tmp_path_factory.mktemp("server") / "server.log"
+    with dashboard(log) as url:
+        yield url
 
 
 @pytest.fixture(scope="module")

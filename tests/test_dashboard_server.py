@@ -1,10 +1,8 @@
 """The server's guards and the session builder, without a browser."""
 
 import os
-import socket
 import subprocess
 import sys
-import time
 import urllib.error
 import urllib.request
 from pathlib import Path
@@ -13,6 +11,7 @@ import pytest
 
 from engine.errors import LagspaceError
 
+import served
 from dashboard import server
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -59,37 +58,17 @@ def test_each_session_gets_its_own_state():
     assert b.session_state.settings.surrogates != 19
 
 
-def _free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 def test_password_file_puts_a_login_in_front(tmp_path):
     pw = tmp_path / "password"
     pw.write_text("correct horse battery\n")
-    port = _free_port()
-    proc = subprocess.Popen([sys.executable, "-c", f"from dashboard.server import serve; "
-                             f"serve(port={port}, password_file={str(pw)!r})"],
-                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
-                            env=dict(os.environ, XDG_CONFIG_HOME=str(tmp_path)))
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            try:
-                page = urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=2)
-                break
-            except urllib.error.HTTPError as exc:
-                page = exc
-                break
-            except OSError:
-                assert proc.poll() is None and time.monotonic() < deadline, proc.stdout.read()
-                time.sleep(0.5)
+    env = dict(os.environ, XDG_CONFIG_HOME=str(tmp_path))
+    with served.dashboard(tmp_path / "server.log", seconds=60, env=env, password_file=str(pw)) as url:
+        try:
+            page = urllib.request.urlopen(url, timeout=10)
+        except urllib.error.HTTPError as exc:
+            page = exc
         assert "/login" in page.geturl() or "password" in page.read().decode().lower()
         assert (tmp_path / "lagspace" / "cookie_secret").stat().st_mode & 0o777 == 0o600
-    finally:
-        proc.terminate()
-        proc.wait(10)
 
 
 @pytest.mark.parametrize("options, words", [({"max_upload_mb": 0}, "--max-upload-mb"),
@@ -128,7 +107,7 @@ def test_cookie_secret_is_kept_private_and_reused(tmp_path, monkeypatch):
 
 def test_unprotected_network_address_is_announced(tmp_path):
     """--allow-unprotected serves a network address but says so before the URL."""
-    port = _free_port()
+    port = served.free_port()
     proc = subprocess.Popen([sys.executable, "-m", "engine.cli", "serve", "--address", "0.0.0.0",
                              "--port", str(port), "--allow-unprotected"],
                             cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
