@@ -153,9 +153,9 @@ class SessionState(param.Parameterized):
 
     # -- running work -------------------------------------------------------------------------------
     def _report(self, fraction: float, message: str) -> None:
-        """Progress from the engine, at most ten updates a second."""
+        """Progress from the engine, at most four updates a second (each one costs the page a redraw)."""
         now = time.monotonic()
-        if now - self._last_report >= 0.1 or fraction >= 1.0:
+        if now - self._last_report >= 0.25 or fraction >= 1.0:
             self._last_report = now
             self._apply(progress=min(max(fraction, 0.0), 1.0), message=f"{self._task}: {message}")
 
