@@ -84,6 +84,11 @@ def check_limits(max_bytes: int = DEFAULT_LIMITS["max_bytes"], max_samples: int 
     return {"max_bytes": max_bytes, "max_samples": max_samples}
 
 
+def refusals(checks: list) -> list:
+    """The findings that stop the analysis until they are fixed."""
+    return [c for c in checks if c.get("severity") == "refuse"]
+
+
 def one_line(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
@@ -127,7 +132,7 @@ class SessionState(param.Parameterized):
     # -- what is current ----------------------------------------------------------------------------
     @property
     def refusals(self) -> list:
-        return [c for c in self.checks if c.get("severity") == "refuse"]
+        return refusals(self.checks)
 
     @property
     def diagnostics_current(self) -> bool:
@@ -259,8 +264,9 @@ class SessionState(param.Parameterized):
             settings = Settings(variable=None if variable is None else str(variable),
                                 sampling_interval=sampling_interval, **keep)
             prepared, checks = self._prepare(rec, settings)
-            if prepared is None and not any(self.fix_changes(c, settings) for c in checks if c.get("severity") == "refuse"):
-                first = next(c for c in checks if c.get("severity") == "refuse")
+            refused = refusals(checks)
+            if prepared is None and not any(self.fix_changes(c, settings) for c in refused):
+                first = refused[0]
                 raise LagspaceError(f"{name} cannot be analysed: {first['message']}"
                                     + (f"; {first['fix']}" if first.get("fix") else ""))
             self._data, self._load_options = data, options
@@ -287,7 +293,7 @@ class SessionState(param.Parameterized):
             prepared = prepare(rec, settings)
         except LagspaceError:
             findings = json_attr(rec, "checks", None) or check_recording(rec)
-            if not any(f.get("severity") == "refuse" for f in findings):
+            if not refusals(findings):
                 raise
             return None, findings
         return prepared, json_attr(prepared, "checks", [])
@@ -295,9 +301,9 @@ class SessionState(param.Parameterized):
     @staticmethod
     def _loaded_message(rec, checks) -> str:
         n = rec.sizes["time"]
-        refusals = sum(c.get("severity") == "refuse" for c in checks)
-        if refusals:
-            return f"Loaded {n:,} samples; {refusals} problem(s) must be fixed before the analysis."
+        refused = len(refusals(checks))
+        if refused:
+            return f"Loaded {n:,} samples; {refused} problem(s) must be fixed before the analysis."
         return f"Loaded {n:,} samples. Check the findings, then go on to delay and dimension."
 
     # -- settings -----------------------------------------------------------------------------------
@@ -332,7 +338,7 @@ class SessionState(param.Parameterized):
                 self._load_options = opts
             prepared, checks = (self.prepared, self.checks) if first >= 2 else self._prepare(rec, new)
             update = dict(raw=rec, prepared=prepared, checks=checks, settings=new)
-            if prepared is not None and had_diagnostics and not any(c.get("severity") == "refuse" for c in checks):
+            if prepared is not None and had_diagnostics and not refusals(checks):
                 update["diagnostics"] = estimate_diagnostics(prepared, new, progress=progress, cancel=cancel)
                 self._keys["diagnostics"] = _key(new, 2)
             elif first <= 1:

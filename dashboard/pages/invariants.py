@@ -32,6 +32,11 @@ def _in_time(label: str, lag: dict, unit: str) -> str:
     return label if unit == "sample" or lag.get("time") is None else f"{label} (= {duration_text(lag['time'], unit)})"
 
 
+def _then(reason: str) -> str:
+    """The engine's reason as a sentence after ours (none when there is none)."""
+    return f". {reason[:1].upper()}{reason[1:]}" if reason else ""
+
+
 def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
     """(quantity, value ± uncertainty, unit, how it was obtained) for the results table."""
     unit = summary.get("input", {}).get("time_unit", "sample")
@@ -53,7 +58,7 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
             how = (f"slope of the correlation sum over radii {number(rng[0], 3)} – {number(rng[1], 3)} "
                    f"{'' if sig_units in ('', '1') else sig_units}; "
                    + ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate")
-                   + (f". {how[:1].upper()}{how[1:]}" if how else ""))
+                   + _then(how))
         rows.append(("Correlation dimension D2", v, "(no unit)", how))
         ml = d2.get("maximum_likelihood")
         if ml:
@@ -76,7 +81,7 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
         fit = lle.get("fit_range")
         how = lle.get("reason") or ""
         if fit:
-            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + (f". {how[:1].upper()}{how[1:]}" if how else "")
+            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + _then(how)
         rows.append(("Largest Lyapunov exponent", v, f"per {unit}", how))
         if unit != "sample" and lle.get("per_sample") is not None:
             v = _pm(lle, "per_sample", "uncertainty_per_sample")
