@@ -1,4 +1,4 @@
-"""Figure builders: pure functions from engine datasets to HoloViews objects.
+"""Figure builders: pure functions from engine datasets to HoloViews objects (one Bokeh figure).
 
 Nothing here computes a result: every number drawn comes from a Recording,
 Diagnostics or Results dataset or from a Summary. The only arithmetic is display
@@ -14,6 +14,9 @@ import textwrap
 import holoviews as hv
 import numpy as np
 import xarray as xr
+from bokeh.models import ColumnDataSource, LinearColorMapper
+from bokeh.palettes import interp_palette
+from bokeh.plotting import figure as bokeh_figure
 
 from engine.embedding import delay_vectors
 from engine.recording import signal, time_unit, variable_name
@@ -204,17 +207,40 @@ def delay_plot(rec: xr.Dataset, delay: int, max_points: int = MAX_CLOUD_POINTS) 
         title=f"delay plot, delay {delay} samples{shown}", show_grid=True, hooks=style.WHEEL_OFF, toolbar="right")
 
 
-def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: float = 20.0,
-                 max_points: int = MAX_CLOUD_POINTS) -> hv.Points:
-    """A turnable 3-D delay view (x(t), x(t+d), x(t+2d)) of evenly thinned vectors, shown by
-    orthographic projection; colour shows depth (darker = nearer)."""
+def _view_points(rec: xr.Dataset, delay: int, azimuth: float, elevation: float, max_points: int):
+    """(columns across / up / nearness, frame half-width, title) of the 3-D view at one angle."""
     v = delay_vectors(signal(rec), 3, int(delay))
     p = project(np.asarray(v[thin_indices(v.shape[0], max_points)]), azimuth, elevation)
-    reach = float(np.sqrt((p ** 2).sum(axis=1)).max()) * 1.05 or 1.0   # same frame at every angle
-    pts = hv.Points((p[:, 0], p[:, 1], -p[:, 2]), kdims=["across", "up"], vdims=["nearness"])
-    return pts.opts(color="nearness", cmap=["#dbe6ec", style.INK], size=2.5, alpha=0.8, responsive=True,
-                    aspect=1, xlim=(-reach, reach), ylim=(-reach, reach), xaxis=None, yaxis=None,
-                    hooks=style.WHEEL_OFF, toolbar=None, title=f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)")
+    reach = float(np.sqrt((p ** 2).sum(axis=1)).max()) * 1.05 or 1.0   # the same at every angle
+    columns = {"across": p[:, 0], "up": p[:, 1], "nearness": -p[:, 2]}
+    return columns, reach, f"delay {delay}: turn {azimuth:.0f}°, tilt {elevation:.0f}° (darker = nearer)"
+
+
+def rotated_view(rec: xr.Dataset, delay: int, azimuth: float = 30.0, elevation: float = 20.0,
+                 max_points: int = MAX_CLOUD_POINTS) -> bokeh_figure:
+    """A turnable 3-D delay view (x(t), x(t+d), x(t+2d)) of evenly thinned vectors, shown by
+    orthographic projection; colour shows depth (darker = nearer).
+
+    A plain Bokeh figure rather than HoloViews, so that :func:`turn_view` can turn it by
+    replacing its points: a HoloViews update makes Bokeh re-walk the whole page's models."""
+    columns, reach, title = _view_points(rec, delay, azimuth, elevation, max_points)
+    fig = bokeh_figure(title=title, x_range=(-reach, reach), y_range=(-reach, reach), tools="",
+                       toolbar_location=None, aspect_ratio=1, sizing_mode="stretch_width",
+                       min_width=200, min_border=4)
+    fig.axis.visible = False
+    fig.grid.visible = False
+    depth = LinearColorMapper(palette=interp_palette(("#dbe6ec", style.INK), 64), low=-reach, high=reach)
+    fig.scatter("across", "up", source=ColumnDataSource(columns), size=2.5, alpha=0.8, line_color=None,
+                fill_color={"field": "nearness", "transform": depth})
+    return fig
+
+
+def turn_view(fig: bokeh_figure, rec: xr.Dataset, delay: int, azimuth: float, elevation: float,
+              max_points: int = MAX_CLOUD_POINTS) -> None:
+    """Turn a view made by :func:`rotated_view` of the same recording and delay to a new angle."""
+    columns, _, title = _view_points(rec, delay, azimuth, elevation, max_points)
+    fig.renderers[0].data_source.data = columns
+    fig.title.text = title
 
 
 def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layout:

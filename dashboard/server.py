@@ -10,13 +10,15 @@ import ipaddress
 import logging
 import os
 import secrets
+import signal
+import sys
 from pathlib import Path
 
 import platformdirs
 
 from engine.errors import LagspaceError
-from engine.warmup import warm_up_in_background
 
+from . import workers
 from .state import check_limits
 
 log = logging.getLogger(__name__)
@@ -140,13 +142,17 @@ def serve(address: str = "127.0.0.1", port: int = 5006, demo: bool = False, show
     elif not _is_local(address):
         print(f"lagspace: WARNING serving {address}:{port} without a password (--allow-unprotected): "
               "anyone who can reach this port can use the dashboard", flush=True)
-    warm_up_in_background()  # compile the engine's kernels while the first user uploads
+    workers.warm_up()  # compile the engine's kernels while the first user uploads
     host = "localhost" if _is_local(address) else address
     print(f"lagspace dashboard: http://{host}:{port}/  (Ctrl-C stops it)", flush=True)
     message = max(MAX_MESSAGE, 2 * limits["max_bytes"])  # a bundle arrives base64-encoded in one message
     def session():
         return build_app(demo_path=demo_path, limits=limits)
 
-    pn.serve({"/": session}, address=address, port=int(port), show=show,
-             title="lagspace", websocket_origin=_origins(address, int(port)), verbose=False,
-             websocket_max_message_size=message, max_buffer_size=message, **auth)
+    signal.signal(signal.SIGTERM, lambda signum, frame: sys.exit(0))  # a clean stop, as Ctrl-C gives
+    try:
+        pn.serve({"/": session}, address=address, port=int(port), show=show,
+                 title="lagspace", websocket_origin=_origins(address, int(port)), verbose=False,
+                 websocket_max_message_size=message, max_buffer_size=message, **auth)
+    finally:
+        workers.stop()

@@ -3,7 +3,8 @@
 The state only calls the engine and keeps its answers; it holds no science. Each
 method runs its work in the calling thread; the pages call them through
 :meth:`SessionState.in_background`, which moves the work to a shared thread pool
-so that a long analysis in one session never blocks another. Errors become one
+so that a long analysis in one session never blocks another. The estimates and
+the invariants themselves run in worker processes (:mod:`dashboard.workers`). Errors become one
 line in ``error`` and leave everything loaded or computed before untouched.
 
 Settings fall into stages (input -> preparation -> diagnostics -> invariants). A
@@ -39,11 +40,13 @@ from engine.recording import json_attr
 from engine.settings import Settings
 from engine.summary import summarise
 
+from . import workers
+
 log = logging.getLogger(__name__)
 
 
-# One pool for every session of the server: numba kernels release the GIL, so two
-# sessions' analyses run side by side.
+# One pool for every session of the server: loading, refits and bundles run here; the
+# estimates and invariants wait here for their worker process.
 EXECUTOR = ThreadPoolExecutor(max_workers=4, thread_name_prefix="lagspace-work")
 
 INPUT = ("variable",)
@@ -55,6 +58,7 @@ INVARIANTS = ("radii", "reference_points", "lyapunov_steps", "surrogates",
               "surrogate_max_samples", "surrogate_kind", "surrogate_statistic", "recurrence_rate",
               "recurrence_max_points", "min_line", "seed", "scaling_range", "divergence_range")
 STAGES = ("input", "preparation", "diagnostics", "invariants")
+STATUS = {"busy", "task", "progress", "message", "error"}  # parameters that redraw no figure
 
 
 def stage_of(field: str) -> int:
@@ -213,8 +217,8 @@ class SessionState(param.Parameterized):
         post = getattr(self._thread, "post", None)
         if post is None:
             self.param.update(**updates)
-        else:
-            post(partial(self.param.update, **updates))
+        else:  # freezing costs a walk of every model: only worth it when figures are redrawn
+            post(partial(self.param.update, **updates), freeze=not set(updates) <= STATUS)
 
     async def in_background(self, method: Callable, *args, **kwargs):
         """Await ``method(*args, **kwargs)`` run in the shared worker pool (for the pages).
@@ -224,15 +228,15 @@ class SessionState(param.Parameterized):
         loop = asyncio.get_running_loop()
         doc = pn.state.curdoc
 
-        def in_session(fn):
+        def in_session(fn, freeze):
             if doc is None:
                 fn()
-            else:
-                with set_curdoc(doc):
+            else:  # freeze: one walk of the page's models for all the redraws one update causes
+                with set_curdoc(doc), pn.io.hold(doc, freeze=freeze):
                     fn()
 
         def call():
-            self._thread.post = lambda fn: loop.call_soon_threadsafe(in_session, fn)
+            self._thread.post = lambda fn, freeze: loop.call_soon_threadsafe(in_session, fn, freeze)
             try:
                 return method(*args, **kwargs)
             finally:
@@ -398,7 +402,7 @@ class SessionState(param.Parameterized):
 
         def work(progress, cancel):
             prepared, settings = self._need_prepared(), self.settings
-            diag = estimate_diagnostics(prepared, settings, progress=progress, cancel=cancel)
+            diag = workers.call(estimate_diagnostics, prepared, settings, progress=progress, cancel=cancel)
             self._keys["diagnostics"] = _key(settings, 2)
             self._apply(diagnostics=diag, message="Delay and embedding dimension estimated; "
                                                         "check the reasons, then run the invariants.")
@@ -412,11 +416,13 @@ class SessionState(param.Parameterized):
             prepared, settings = self._need_prepared(), self.settings
             if self.diagnostics_current:
                 diag = self.diagnostics
-                results = analysis_mod.invariants(prepared, diag, settings, progress=progress, cancel=cancel)
+                results = workers.call(analysis_mod.invariants, prepared, diag, settings,
+                                       progress=progress, cancel=cancel)
                 result = analysis_mod.Analysis(self.raw, settings, prepared, diag, results,
                                                summarise(prepared, diag, results, settings))
             else:
-                result = analysis_mod.run_standard_analysis(self.raw, settings, progress=progress, cancel=cancel)
+                result = workers.call(analysis_mod.run_standard_analysis, self.raw, settings,
+                                      progress=progress, cancel=cancel)
             self._keys.update(diagnostics=_key(settings, 2), analysis=_key(settings, 3))
             if result.diagnostics is not self.diagnostics:
                 self._apply(diagnostics=result.diagnostics)

@@ -3,18 +3,14 @@
 The kernels use ``cache=True``, so a compiled copy is kept on disk and loaded on
 the next start; ``warm_up`` runs the whole standard analysis once on a small
 made-up series, which touches every kernel along the real code paths. The
-dashboard calls it in a background thread at server start.
+dashboard runs it in a worker process at server start.
 """
 
 from __future__ import annotations
 
-import logging
-import threading
 import time
 
 import numpy as np
-
-log = logging.getLogger("lagspace")
 
 
 def warm_up() -> float:
@@ -30,17 +26,3 @@ def warm_up() -> float:
         x[k] = 3.9 * x[k - 1] * (1.0 - x[k - 1])
     run_standard_analysis(make_recording(x, source="warm-up"), Settings(surrogates=19, max_dimension=4))
     return time.perf_counter() - start
-
-
-def warm_up_in_background() -> threading.Thread:
-    """Start :func:`warm_up` in a daemon thread; failures are logged, never raised."""
-
-    def run():
-        try:
-            log.info("kernels ready after %.1f s", warm_up())
-        except Exception as exc:  # a failed warm-up only costs the first user some seconds
-            log.warning("kernel warm-up failed: %s", exc)
-
-    thread = threading.Thread(target=run, name="lagspace-warm-up", daemon=True)
-    thread.start()
-    return thread

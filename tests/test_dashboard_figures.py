@@ -70,14 +70,31 @@ def test_delay_plot_is_the_lagged_pairs(lorenz_rec):
     assert np.array_equal(data, np.column_stack([x[:-16], x[16:]])[:1000])
 
 
+def _view_points(fig) -> np.ndarray:
+    data = fig.renderers[0].data_source.data
+    return np.column_stack([data["across"], data["up"], -np.asarray(data["nearness"])])
+
+
 def test_rotated_view_keeps_shape(lorenz_rec):
-    pts = figures.rotated_view(lorenz_rec, 10, azimuth=50, elevation=-30, max_points=400)
-    shown = np.column_stack([pts.dimension_values(0), pts.dimension_values(1), -pts.dimension_values(2)])
+    # Analytic: a rotation keeps every distance, so the shown cloud has the pair distances
+    # (scipy pdist) of the delay vectors x(t), x(t+d), x(t+2d) it shows.
+    fig = figures.rotated_view(lorenz_rec, 10, azimuth=50, elevation=-30, max_points=400)
+    shown = _view_points(fig)
     x = lorenz_rec["x"].values
     v = np.column_stack([x[:-20], x[10:-10], x[20:]])
     v = v[figures.thin_indices(v.shape[0], 400)]
     assert shown.shape[0] <= 400
     assert np.allclose(pdist(shown), pdist(v))
+
+
+def test_turning_a_view_in_place_equals_drawing_it_anew(lorenz_rec):
+    fig = figures.rotated_view(lorenz_rec, 10, azimuth=30, elevation=20, max_points=400)
+    frame = (fig.x_range.start, fig.x_range.end)
+    figures.turn_view(fig, lorenz_rec, 10, azimuth=75, elevation=-40, max_points=400)
+    fresh = figures.rotated_view(lorenz_rec, 10, azimuth=75, elevation=-40, max_points=400)
+    assert np.allclose(_view_points(fig), _view_points(fresh))
+    assert fig.title.text == fresh.title.text == "delay 10: turn 75°, tilt -40° (darker = nearer)"
+    assert (fresh.x_range.start, fresh.x_range.end) == pytest.approx(frame)  # the frame stays put
 
 
 def test_delay_multiples_one_panel_per_delay(lorenz_rec):
@@ -87,13 +104,13 @@ def test_delay_multiples_one_panel_per_delay(lorenz_rec):
 
 def test_recording_figures_render(lorenz_rec):
     for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16),
-                figures.rotated_view(lorenz_rec, 16), figures.delay_multiples(lorenz_rec, [4, 16]),
+                figures.delay_multiples(lorenz_rec, [4, 16]),
                 figures.spectrum(None, {"time": 0.7, "strength": 0.3}, unit="s")):
         assert hv.render(fig) is not None
     # Scrolling the page must not zoom a plot the pointer passes over (wheel zoom stays opt-in).
-    for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16),
-                figures.rotated_view(lorenz_rec, 16)):
+    for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16)):
         assert hv.render(fig).toolbar.active_scroll is None
+    assert figures.rotated_view(lorenz_rec, 16).toolbar.tools == []  # nothing to zoom with at all
 
 
 def test_recurrence_image_is_the_symmetric_recurrence_matrix():

@@ -39,6 +39,26 @@ def card(title: str, *objects, **kwargs) -> pn.Card:
     return pn.Card(*objects, title=title, collapsible=False, margin=(6, 6), **kwargs)
 
 
+def one_per_tick(steps) -> None:
+    """Call ``steps`` (figure draws, each costing the server a fraction of a second) one per
+    turn of the served session's event loop, so that other sessions' clicks are answered in
+    between; all at once when nothing is served (tests, notebooks)."""
+    steps = list(steps)
+    doc = pn.state.curdoc
+    if doc is None or doc.session_context is None:
+        for step in steps:
+            step()
+        return
+
+    def next_step():
+        steps.pop(0)()
+        if steps:
+            doc.add_next_tick_callback(next_step)
+
+    if steps:
+        doc.add_next_tick_callback(next_step)
+
+
 async def run(state: SessionState, method, *args, **kwargs):
     """Run a state method off the event loop; returns its result (False on failure)."""
     return await state.in_background(method, *args, **kwargs)

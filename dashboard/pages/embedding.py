@@ -12,7 +12,7 @@ from engine.recording import json_attr, time_unit
 
 from .. import figures
 from ..state import SessionState
-from .common import card, esc, estimate_if_ready, run, with_unit
+from .common import card, esc, estimate_if_ready, one_per_tick, run, with_unit
 
 
 def _reason_html(value_text: str, est: dict) -> str:
@@ -59,7 +59,7 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._delay_plot = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._turn = pn.widgets.IntSlider(label="Turn (°)", start=-180, end=180, value=30, step=5)
         self._tilt = pn.widgets.IntSlider(label="Tilt (°)", start=-90, end=90, value=20, step=5)
-        self._view3d = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._view3d = pn.pane.Bokeh(sizing_mode="stretch_width")
         self._multiples = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._space_time = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._curves_area = pn.Column(sizing_mode="stretch_width", visible=False)
@@ -75,8 +75,8 @@ class EmbeddingPage(pn.viewable.Viewer):
         s.param.watch(self._show_busy, ["busy"])
         self._drawn, self._space_time_key = (None, None), None
         s.param.watch(self._show_space_time, ["analysis"])
-        self._turn.param.watch(self._show_view3d, "value_throttled")
-        self._tilt.param.watch(self._show_view3d, "value_throttled")
+        self._turn.param.watch(self._turn_view3d, "value_throttled")
+        self._tilt.param.watch(self._turn_view3d, "value_throttled")
         self._show()
         self._show_busy()
         self._show_space_time()
@@ -130,17 +130,28 @@ class EmbeddingPage(pn.viewable.Viewer):
         if self._drawn[0] is diag and self._drawn[1] is rec:
             return
         self._drawn = (diag, rec)
-        self._delay_curves.object = figures.delay_curves(diag)
-        self._dim_curves.object = figures.dimension_curves(diag)
+        draws = [lambda: setattr(self._delay_curves, "object", figures.delay_curves(diag)),
+                 lambda: setattr(self._dim_curves, "object", figures.dimension_curves(diag))]
         if rec is not None and tau:
-            self._delay_plot.object = figures.delay_plot(rec, tau)
-            self._multiples.object = figures.delay_multiples(rec, _delay_steps(tau))
-            self._show_view3d()
+            draws += [lambda: setattr(self._delay_plot, "object", figures.delay_plot(rec, tau)),
+                      lambda: setattr(self._multiples, "object", figures.delay_multiples(rec, _delay_steps(tau))),
+                      self._show_view3d]
+        one_per_tick(self._unless_replaced(draw, diag, rec) for draw in draws)
+
+    def _unless_replaced(self, draw, diag, rec):
+        """``draw``, skipped if newer diagnostics or recording came before its turn."""
+        return lambda: draw() if self._drawn == (diag, rec) else None
 
     def _show_view3d(self, *events):
         rec, tau = self.state.prepared, self._delay()
         if rec is not None and tau:
             self._view3d.object = figures.rotated_view(rec, tau, azimuth=self._turn.value, elevation=self._tilt.value)
+
+    def _turn_view3d(self, *events):
+        """A slider step turns the drawn view in place (new points, same plot): cheap for the server."""
+        rec, tau = self.state.prepared, self._delay()
+        if rec is not None and tau and self._view3d.object is not None:
+            figures.turn_view(self._view3d.object, rec, tau, azimuth=self._turn.value, elevation=self._tilt.value)
 
     def _show_space_time(self, *events):
         a = self.state.analysis

@@ -16,7 +16,7 @@ from engine.summary import STATISTIC_WORDS, format_estimate
 
 from .. import figures
 from ..state import SessionState
-from .common import card, esc, number, run
+from .common import card, esc, number, one_per_tick, run
 
 KIND_WORDS = {"iaaft": "IAAFT (spectrum and values kept)", "aaft": "AAFT (amplitude adjusted)",
               "ft": "FT (spectrum kept, Gaussian)"}
@@ -203,7 +203,7 @@ class InvariantsPage(pn.viewable.Viewer):
         if a is None or a.results is None:
             self._drawn = {}
             return
-        summary, res = a.summary, a.results
+        summary = a.summary
         self._verdict.object = esc(summary.get("verdict", ""))
         self._table.object = results_table_html(summary)
         warnings = summary.get("warnings") or []
@@ -218,19 +218,24 @@ class InvariantsPage(pn.viewable.Viewer):
             "recurrence": (("recurrence",), lambda r, s: figures.recurrence_plot(r, units=s["input"].get("units"))),
         }
         base = (a.settings.to_json(), json.dumps(summary.get("input"), sort_keys=True))
-        for name, (parts, build) in builders.items():
-            key = base + tuple(json.dumps(summary.get(p), sort_keys=True) for p in parts)
-            if self._drawn.get(name) == key:
-                continue  # a refit of one estimate redraws only the figures that show it
-            fig = build(res, summary)
-            if name in ("slopes", "divergence"):
-                source = figures.selectable(fig)
-                if source is not None:
-                    stream = hv.streams.BoundsX(source=source)
-                    stream.add_subscriber(lambda kind=name, **kw: self._on_bounds(kind, **kw))
-                    self._streams[name] = stream
-            self._plots[name].object = fig
-            self._drawn[name] = key
+        keys = {name: base + tuple(json.dumps(summary.get(p), sort_keys=True) for p in parts)
+                for name, (parts, build) in builders.items()}
+        # a refit of one estimate redraws only the figures that show it
+        one_per_tick(partial(self._draw, a, name, keys[name], builders[name][1])
+                     for name in builders if self._drawn.get(name) != keys[name])
+
+    def _draw(self, analysis, name: str, key: tuple, build) -> None:
+        if self.state.analysis is not analysis or self._drawn.get(name) == key:
+            return  # a newer analysis has its own draws, or this one is drawn already
+        fig = build(analysis.results, analysis.summary)
+        if name in ("slopes", "divergence"):
+            source = figures.selectable(fig)
+            if source is not None:
+                stream = hv.streams.BoundsX(source=source)
+                stream.add_subscriber(lambda kind=name, **kw: self._on_bounds(kind, **kw))
+                self._streams[name] = stream
+        self._plots[name].object = fig
+        self._drawn[name] = key
 
     def __panel__(self):
         options = card("Surrogate test", pn.FlexBox(self._surrogates, self._kind, self._statistic, self._seed),

@@ -51,6 +51,7 @@ NEW_VIEW = ("angle => [...Bokeh.documents[0].all_models].some(m => m.type == 'Ti
             " && m.text.includes(`: turn ${angle}°`))")
 LAST_ANGLE = 180          # the slider's end: no more actions after it
 FINISHED = re.compile("Analysis done|failed; earlier results are kept")
+RUN_PRESSED = 0.0         # time.monotonic() when the sessions pressed Run (for the report)
 
 
 @dataclass
@@ -90,8 +91,8 @@ async def turn(page) -> float | str | None:
         await page.wait_for_function(NEW_VIEW, arg=angle, polling=20, timeout=ACTION_TIMEOUT * 1000)
     except PlaywrightTimeout:
         titles = await page.evaluate(TURN_TITLES)
-        return (f"turn to {angle}° unanswered: slider at {await handle.get_attribute('aria-valuenow')}, "
-                f"views {titles[-2:]}")
+        return (f"turn to {angle}° at {start - RUN_PRESSED:+.0f} s from Run unanswered: slider at "
+                f"{await handle.get_attribute('aria-valuenow')}, views {titles[-2:]}")
     return time.monotonic() - start
 
 
@@ -161,6 +162,8 @@ async def run_sessions(url: str, recording: Path, found: list[Session], surrogat
             pages = [await (await browser.new_context(viewport={"width": 1400, "height": 1000})).new_page()
                      for _ in found]
             await asyncio.gather(*(prepare(p, url, recording, surrogates, s) for p, s in zip(pages, found)))
+            global RUN_PRESSED
+            RUN_PRESSED = time.monotonic()
             await asyncio.gather(*(run_and_act(p, s) for p, s in zip(pages, found)))
             await asyncio.gather(*(read_results(p, s) for p, s in zip(pages, found)))
         finally:
