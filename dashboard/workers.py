@@ -20,6 +20,7 @@ import itertools
 import logging
 import multiprocessing
 import os
+import queue
 import threading
 import time
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -39,7 +40,7 @@ PRELOAD = ["engine.analysis", "engine.diagnostics", "engine.warmup"]
 _lock = threading.Lock()
 _pool: ProcessPoolExecutor | None = None
 _shared = None           # (reports queue, cancel ring) of the pool
-_listeners: dict = {}    # call number -> progress callback
+_inboxes: dict = {}      # call number -> queue.Queue of its progress reports
 _numbers = itertools.count(1)
 
 # in a worker process: what the pool's initializer handed over
@@ -66,12 +67,12 @@ def _start_worker(server_pid: int, reports, cancelled) -> None:
 
 
 def _relay(reports) -> None:
-    """Hand each worker report to the progress callback of its call (a server thread)."""
+    """Sort the workers' reports into the inbox of their call (a server thread)."""
     while True:
         number, fraction, message = reports.get()
-        listener = _listeners.get(number)
-        if listener is not None:
-            listener(fraction, message)
+        inbox = _inboxes.get(number)
+        if inbox is not None:
+            inbox.put((fraction, message))
 
 
 def _pool_and_shared():
@@ -129,8 +130,7 @@ def call(fn: Callable, *args, progress=None, cancel=None, **kwargs):
     ``is_set()``). ``fn`` and its arguments must be picklable; its exceptions are raised here."""
     pool, (_, ring) = _pool_and_shared()
     number = next(_numbers)
-    if progress is not None:
-        _listeners[number] = progress
+    inbox = _inboxes[number] = queue.Queue()
     try:
         try:
             future: Future = pool.submit(_in_worker, number, fn, args, kwargs)
@@ -138,20 +138,23 @@ def call(fn: Callable, *args, progress=None, cancel=None, **kwargs):
             _forget_pool(pool)
             pool, _ = _pool_and_shared()
             future = pool.submit(_in_worker, number, fn, args, kwargs)
-        while not future.done():
+        while not future.done():  # progress is called here, in the caller's thread
             try:
-                return future.result(timeout=0.1)
-            except TimeoutError:
-                if cancel is not None and cancel.is_set():
-                    with ring.get_lock():
-                        ring[number % CANCEL_RING] = number
+                fraction, message = inbox.get(timeout=0.1)
+                if progress is not None:
+                    progress(fraction, message)
+            except queue.Empty:
+                pass
+            if cancel is not None and cancel.is_set():
+                with ring.get_lock():
+                    ring[number % CANCEL_RING] = number
         return future.result()
     except BrokenProcessPool:
         _forget_pool(pool)
         raise LagspaceError("the worker process running this stopped unexpectedly (perhaps out of memory): "
                             "crop the recording or lower the limits, then try again") from None
     finally:
-        _listeners.pop(number, None)
+        _inboxes.pop(number, None)
 
 
 def stop() -> None:

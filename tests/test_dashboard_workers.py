@@ -31,9 +31,12 @@ def test_a_worker_gives_what_the_engine_gives_in_this_process(henon):
     # The reference is the same engine function called here: running it elsewhere must change nothing.
     reports = []
     here = estimate(henon, Settings())
-    there = workers.call(estimate, henon, Settings(), progress=lambda f, m: reports.append((f, m)))
+    there = workers.call(estimate, henon, Settings(),
+                         progress=lambda f, m: reports.append((f, m, threading.get_ident())))
     xr.testing.assert_identical(there, here)
-    assert reports and all(0.0 <= f <= 1.0 and isinstance(m, str) for f, m in reports)
+    assert reports and all(0.0 <= f <= 1.0 and isinstance(m, str) for f, m, _ in reports)
+    # the dashboard hands progress to the page from the thread that made the call, so it must arrive there
+    assert {thread for _, _, thread in reports} == {threading.get_ident()}
 
 
 def test_cancel_reaches_the_worker(henon):

@@ -78,8 +78,9 @@ class StatusBar(pn.viewable.Viewer):
     def __init__(self, **params):
         super().__init__(**params)
         bar_css = f":host {{ --primary-bg-color: {style.INK}; }}"
+        # not active: animated stripes repaint the page sixty times a second for as long as work runs
         self._bar = pn.indicators.Progress(value=0, max=1000, bar_color="primary", sizing_mode="stretch_width",
-                                           height=16, margin=(8, 10), stylesheets=[bar_css])
+                                           height=16, margin=(8, 10), stylesheets=[bar_css], active=False)
         self._cancel = pn.widgets.Button(label="Cancel", color="warning", width=90, margin=(2, 6))
         self._cancel.on_click(lambda event: self.state.cancel())
         self._busy_row = pn.Row(self._bar, self._cancel, visible=False, sizing_mode="stretch_width")
