@@ -161,7 +161,8 @@ def power_spectrum(x, sampling_interval: float | None = None) -> xr.Dataset:
     Hann-windowed segments of :func:`_segment_length` samples with 50 % overlap,
     each with its mean removed, scaled as a density (``scipy.signal.welch``,
     ``scaling="density"``), so the integral of ``power`` over ``frequency`` is
-    the variance of the series. ``x`` is a Recording or a 1-D array; the
+    the mean windowed variance of the segments: the variance of the series
+    when its correlation time is well below a segment. ``x`` is a Recording or a 1-D array; the
     interval defaults to the Recording's (1 for an array). ``power`` is in
     (signal units)^2 per (1 / time unit), ``frequency`` in 1 / time unit
     (cycles, not radians); an array has units "1" and time unit "sample"
