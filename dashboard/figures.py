@@ -24,6 +24,9 @@ from engine.recording import signal, time_unit, variable_name
 from . import style
 
 hv.extension("bokeh", logo=False)
+# Canvas, not WebGL (HoloViews' default since 1.22): without a GPU (remote desktops, virtual machines,
+# headless Chromium) WebGL glyphs silently fail to draw and a figure shows only its axes.
+hv.renderer("bokeh").webgl = False
 
 MAX_LINE_POINTS = 4000
 MAX_CLOUD_POINTS = 5000
