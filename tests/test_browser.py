@@ -4,13 +4,18 @@ The server runs in a subprocess on a free port. Skips only when Chromium is miss
 ``CI`` environment variable is not set (in CI a missing browser is a failure).
 """
 
+import io
 import os
+import time
 import zipfile
+
+import numpy as np
 
 import pytest
 from playwright.sync_api import sync_playwright
 
 import systems
+from dashboard import style
 from served import ARGS, CHROMIUM, dashboard
 
 BUNDLE_MEMBERS = {"manifest.json", "recording.nc", "diagnostics.nc", "results.nc", "settings.json",
@@ -62,6 +67,20 @@ def _results(page) -> str:
     return table.inner_text()
 
 
+def _pixels_of(card, colour: str, at_least: int, seconds: float = 30) -> int:
+    """How many pixels of ``card`` (a Playwright locator) have ``colour`` (within 40 per channel,
+    for antialiasing), waiting up to ``seconds`` for ``at_least`` of them: a figure whose glyphs
+    fail to draw (as with WebGL and no GPU) shows its axes and legend but never the curve."""
+    from PIL import Image
+    target = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)])
+    deadline, count = time.monotonic() + seconds, 0
+    while time.monotonic() < deadline and count < at_least:
+        image = np.asarray(Image.open(io.BytesIO(card.screenshot())).convert("RGB"), dtype=int)
+        count = int(np.sum(np.all(np.abs(image - target) <= 40, axis=-1)))
+        time.sleep(0.5)
+    return count
+
+
 def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
     page, problems = _open(browser, server)
 
@@ -87,8 +106,10 @@ def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
     assert "per s" in first  # exponents carry their time unit
     assert page.get_by_text("research tool, not a diagnostic").count() >= 1
 
-    # 4. drag across the divergence plot: the exponent is refitted over the chosen steps
+    # 4. the curves are drawn (the chosen dimension's divergence curve is in CLAY; the legend's sample
+    # of it is about 60 pixels), then drag across the plot: the exponent is refitted over the chosen steps
     divergence_card = page.locator(".card", has_text="Divergence of neighbours").first
+    assert _pixels_of(divergence_card, style.CLAY, at_least=400) >= 400
     divergence_card.scroll_into_view_if_needed()
     box = divergence_card.bounding_box()
     x, y = box["x"] + 0.3 * box["width"], box["y"] + 0.55 * box["height"]
