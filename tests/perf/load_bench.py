@@ -11,7 +11,9 @@ the server answers with a redrawn view (the action is answered when the view nam
 angle reaches the page). Switching tabs would not do: the browser draws tabs alone.
 
 Prints the analysis wall time of each session and the action latencies (median, 95th
-percentile, maximum, count), idle and under load. Exit status 0 when every session got
+percentile, maximum, count), idle and under load, and the server's share of them: from the
+slider's websocket message leaving the page to the redrawn view's data arriving. The rest is
+the browser's own drawing, which on this one machine shares the cores with the server. Exit status 0 when every session got
 results, all with the same correlation dimension, and every action was answered within
 ACTION_TIMEOUT; 1 otherwise. Not collected by pytest: tests/test_concurrent_sessions.py runs
 it once and checks the untimed facts.
@@ -64,6 +66,20 @@ class Session:
     analysis_time: Optional[float] = None         # s from pressing Run to "Analysis done"
     d2: Optional[str] = None                      # the correlation dimension as the results table shows it
     errors: list = field(default_factory=list)    # page errors and the status line of a failed run
+    server: list = field(default_factory=list)    # s from the slider's message leaving the page to the new view's data arriving
+    frames: list = field(default_factory=list)    # (time.monotonic(), "sent" | "view") of the websocket messages that matter
+
+    def watch(self, ws) -> None:
+        """Note when a slider step leaves the page and when a redrawn view's data arrives (frames
+        are timed by the browser's network side, so the page's own drawing does not delay them)."""
+        ws.on("framesent", lambda p: "value_throttled" in str(p) and self.frames.append((time.monotonic(), "sent")))
+        ws.on("framereceived", lambda p: "ColumnDataChanged" in str(p) and self.frames.append((time.monotonic(), "view")))
+
+    def server_time(self, since: float) -> Optional[float]:
+        """Seconds between the first slider message after ``since`` and the next view data, if both came."""
+        sent = next((t for t, kind in self.frames if kind == "sent" and t >= since), None)
+        view = None if sent is None else next((t for t, kind in self.frames if kind == "view" and t >= sent), None)
+        return None if view is None else view - sent
 
 
 def write_recording(path: Path) -> Path:
@@ -71,6 +87,10 @@ def write_recording(path: Path) -> Path:
     x = systems.lorenz(5000, dt=0.02)
     path.write_text("time_s,x_V\n" + "\n".join(f"{0.02 * i:.2f},{v:.9g}" for i, v in enumerate(x)) + "\n")
     return path
+
+
+def _when(start: float) -> str:
+    return "before Run" if not RUN_PRESSED else f"at {start - RUN_PRESSED:+.0f} s from Run"
 
 
 async def turn(page) -> float | str | None:
@@ -91,21 +111,26 @@ async def turn(page) -> float | str | None:
         await page.wait_for_function(NEW_VIEW, arg=angle, polling=20, timeout=ACTION_TIMEOUT * 1000)
     except PlaywrightTimeout:
         titles = await page.evaluate(TURN_TITLES)
-        return (f"turn to {angle}° at {start - RUN_PRESSED:+.0f} s from Run unanswered: slider at "
+        return (f"turn to {angle}° {_when(start)} unanswered: slider at "
                 f"{await handle.get_attribute('aria-valuenow')}, views {titles[-2:]}")
     return time.monotonic() - start
 
 
 async def _act(page, session: Session, into: list) -> None:
+    start = time.monotonic()
     latency = await turn(page)
     if isinstance(latency, str):
         session.unanswered.append(latency)
     elif latency is not None:
         into.append(latency)
+        server = session.server_time(start)
+        if server is not None:
+            session.server.append(server)
 
 
 async def prepare(page, url: str, recording: Path, surrogates: Optional[int], session: Session) -> None:
     """Open the page, upload, accept the suggestions, measure idle actions, go to page 3."""
+    page.on("websocket", session.watch)
     page.on("pageerror", lambda e: session.errors.append(f"page error: {e.name}: {e.message} {(e.stack or '')[:300]}"))
     await page.goto(url)
     await page.get_by_text("1 · Recording").first.wait_for(timeout=60_000)
@@ -154,10 +179,23 @@ async def read_results(page, session: Session) -> None:
     session.d2 = (await row.locator("td.num").first.inner_text()).strip()
 
 
-async def run_sessions(url: str, recording: Path, found: list[Session], surrogates: Optional[int]) -> None:
+def niced_browser(folder: Path, nice: int) -> str:
+    """A launcher running Chromium at ``nice`` (0: as is). The users' browsers run on their own
+    machines; here they share the server's cores, and at a lower priority they take only what the
+    server leaves, as if they were elsewhere."""
+    if nice == 0:
+        return CHROMIUM
+    launcher = folder / "chromium"
+    launcher.write_text(f'#!/bin/sh\nexec nice -n {nice} {CHROMIUM} "$@"\n')
+    launcher.chmod(0o755)
+    return str(launcher)
+
+
+async def run_sessions(url: str, recording: Path, found: list[Session], surrogates: Optional[int],
+                       chromium: str = CHROMIUM) -> None:
     """One browser context per Session in ``found``: prepare, run_and_act (started together), read_results."""
     async with async_playwright() as pw:
-        browser = await pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
+        browser = await pw.chromium.launch(executable_path=chromium, args=ARGS)
         try:
             pages = [await (await browser.new_context(viewport={"width": 1400, "height": 1000})).new_page()
                      for _ in found]
@@ -170,13 +208,15 @@ async def run_sessions(url: str, recording: Path, found: list[Session], surrogat
             await browser.close()
 
 
-def measure(sessions: int = 4, surrogates: Optional[int] = None) -> list[Session]:
-    """Start a server, run ``sessions`` sessions at once (within BUDGET), stop the server."""
+def measure(sessions: int = 4, surrogates: Optional[int] = None, browser_nice: int = 0) -> list[Session]:
+    """Start a server, run ``sessions`` sessions at once (within BUDGET), stop the server; the
+    browsers run at ``browser_nice`` (see niced_browser)."""
     with tempfile.TemporaryDirectory() as tmp, dashboard(Path(tmp) / "server.log") as url:
         recording = write_recording(Path(tmp) / "lorenz_x.csv")
         found = [Session() for _ in range(sessions)]
         try:
-            asyncio.run(asyncio.wait_for(run_sessions(url, recording, found, surrogates), BUDGET))
+            chromium = niced_browser(Path(tmp), browser_nice)
+            asyncio.run(asyncio.wait_for(run_sessions(url, recording, found, surrogates, chromium), BUDGET))
         except asyncio.TimeoutError:
             found[0].errors.append(f"the sessions did not finish within {BUDGET:g} s")
         return found
@@ -211,6 +251,8 @@ def report(found: list[Session]) -> None:
               f"{len(s.loaded)} actions during it, {len(s.unanswered)} unanswered")
     print(f"idle (before Run):  {_stats([x for s in found for x in s.idle])}")
     print(f"during the runs:    {_stats([x for s in found for x in s.loaded])}")
+    print("the server's share of every answered action (slider message out to redrawn view in, as the")
+    print(f"browser's network side saw them): {_stats([x for s in found for x in s.server])}")
 
 
 def main(argv=None) -> int:
@@ -218,8 +260,10 @@ def main(argv=None) -> int:
     parser.add_argument("--sessions", type=int, default=4, help="browser sessions at once (default 4)")
     parser.add_argument("--surrogates", type=int, default=None,
                         help="surrogate count to type into each page (default: leave the page's own)")
+    parser.add_argument("--browser-nice", type=int, default=0,
+                        help="run the browsers at this nice level (19: as if on other machines; default 0)")
     args = parser.parse_args(argv)
-    found = measure(args.sessions, args.surrogates)
+    found = measure(args.sessions, args.surrogates, args.browser_nice)
     report(found)
     bad = problems(found)
     for line in bad:
