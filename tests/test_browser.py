@@ -12,6 +12,7 @@ import zipfile
 import numpy as np
 
 import pytest
+from PIL import Image
 from playwright.sync_api import sync_playwright
 
 import systems
@@ -71,7 +72,6 @@ def _pixels_of(card, colour: str, at_least: int, seconds: float = 30) -> int:
     """How many pixels of ``card`` (a Playwright locator) have ``colour`` (within 40 per channel,
     for antialiasing), waiting up to ``seconds`` for ``at_least`` of them: a figure whose glyphs
     fail to draw (as with WebGL and no GPU) shows its axes and legend but never the curve."""
-    from PIL import Image
     target = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)])
     deadline, count = time.monotonic() + seconds, 0
     while time.monotonic() < deadline and count < at_least:

@@ -13,9 +13,9 @@ angle reaches the page). Switching tabs would not do: the browser draws tabs alo
 Prints the analysis wall time of each session and the action latencies (median, 95th
 percentile, maximum, count), idle and under load, and the server's share of them: from the
 slider's websocket message leaving the page to the redrawn view's data arriving. The rest is
-the browser's own drawing, which on this one machine shares the cores with the server. Exit status 0 when every session got
-results, all with the same correlation dimension, and every action was answered within
-ACTION_TIMEOUT; 1 otherwise. Not collected by pytest: tests/test_concurrent_sessions.py runs
+the browser's own drawing, which on this one machine shares the cores with the server.
+Exit status 0 when every session got results, all with the same correlation dimension, and
+every action was answered within ACTION_TIMEOUT; 1 otherwise. Not collected by pytest: tests/test_concurrent_sessions.py runs
 it once and checks the untimed facts.
 """
 
@@ -70,8 +70,9 @@ class Session:
     frames: list = field(default_factory=list)    # (time.monotonic(), "sent" | "view") of the websocket messages that matter
 
     def watch(self, ws) -> None:
-        """Note when a slider step leaves the page and when a redrawn view's data arrives (frames
-        are timed by the browser's network side, so the page's own drawing does not delay them)."""
+        """Note when a slider step leaves the page and when a redrawn view's data arrives, as
+        Playwright hears of the frames from the browser's network side (the page's own drawing
+        does not delay that)."""
         ws.on("framesent", lambda p: "value_throttled" in str(p) and self.frames.append((time.monotonic(), "sent")))
         ws.on("framereceived", lambda p: "ColumnDataChanged" in str(p) and self.frames.append((time.monotonic(), "view")))
 
