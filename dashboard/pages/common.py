@@ -7,6 +7,7 @@ import io
 
 import panel as pn
 import param
+from panel.io.state import set_curdoc
 
 from engine.errors import LagspaceError
 
@@ -42,16 +43,23 @@ def card(title: str, *objects, **kwargs) -> pn.Card:
 def one_per_tick(steps) -> None:
     """Call ``steps`` (figure draws, each costing the server a fraction of a second) one per
     turn of the served session's event loop, so that other sessions' clicks are answered in
-    between; all at once when nothing is served (tests, notebooks)."""
+    between; all at once when nothing is served (tests, notebooks). Each step walks the
+    document's models once (a new figure's pane otherwise walks them twice)."""
     steps = list(steps)
     doc = pn.state.curdoc
+
+    def step():
+        with pn.io.hold(doc, freeze=True):
+            steps.pop(0)()
+
     if doc is None or doc.session_context is None:
-        for step in steps:
+        while steps:
             step()
         return
 
     def next_step():
-        steps.pop(0)()
+        with set_curdoc(doc):
+            step()
         if steps:
             doc.add_next_tick_callback(next_step)
 
