@@ -25,6 +25,9 @@ import xarray as xr
 
 from .errors import RecordingError
 from .recording import signal, time_unit, with_json_attr
+from .settings import Settings
+
+MAX_GAP = Settings.max_gap  # the default longest run that interpolation fills
 
 SEVERITIES = ("refuse", "warn", "note")
 LARGEST_VALUE = 1e100  # sums of N squared distances stay finite in float64
@@ -146,8 +149,8 @@ def _not_finite(x):
     runs = true_runs(bad)
     lengths = runs[:, 1] - runs[:, 0]
     edge = bool(runs[0, 0] == 0 or runs[-1, 1] == x.size)
-    fix = (f"short gaps (the longest here is {lengths.max()} samples) can be filled by linear "
-           "interpolation when asked (fill_gaps, up to max_gap samples each)")
+    fix = (f"short gaps can be filled by linear interpolation (the fill-gaps option, up to {MAX_GAP} samples "
+           f"each unless a longer max gap is set; the longest here is {lengths.max()})")
     fix += "; gaps at the start or end cannot be interpolated: crop them off" if edge else ""
     fix += "; or crop to a stretch without gaps"
     return [_finding(

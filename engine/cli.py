@@ -38,6 +38,8 @@ def _analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, metavar="S", help="seed for every random choice (default 0)")
     p.add_argument("--resample", action="store_true", help="resample unevenly sampled data onto a uniform grid")
     p.add_argument("--fill-gaps", action="store_true", help="interpolate short runs of missing values")
+    p.add_argument("--max-gap", type=int, metavar="N",
+                   help="longest run of missing samples --fill-gaps may interpolate (default 3; implies --fill-gaps)")
 
 
 def _parser() -> _Parser:
@@ -78,13 +80,15 @@ def _parser() -> _Parser:
 def settings_overrides(args) -> dict:
     """The settings that command-line options set explicitly, as ``{name: value}``."""
     changes = {}
-    for name in ("variable", "sampling_interval", "delay", "dimension", "theiler", "surrogates", "seed"):
+    for name in ("variable", "sampling_interval", "delay", "dimension", "theiler", "surrogates", "seed", "max_gap"):
         value = getattr(args, name, None)
         if value is not None:
             changes[name] = value
     for flag in ("resample", "fill_gaps"):
         if getattr(args, flag, False):
             changes[flag] = True
+    if "max_gap" in changes:
+        changes["fill_gaps"] = True
     return changes
 
 

@@ -63,7 +63,8 @@ _SUFFIX_UNITS = {"s", "ms", "us", "ns", "min", "h", "ue", "uV", "mV", "V", "mA",
 _TIME_NAMES = {"time", "t", "times", "timestamp", "timestamps", "datetime", "date", "seconds",
                "secs", "sec", "elapsed", "elapsed_time", "clock", "year", "years", "month", "months"}
 _INDEX_NAMES = {"sample", "samples", "index", "idx", "n", "i", "sample_number", "step"}
-_DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*")
+_DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*"
+                      r"|\d{1,2}\.\d{1,2}\.\d{2,4}(?:[ T][\d:.]+)?")  # or 31.01.2024 (day first)
 _WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\[\(\]\)]*[\]\)])?|[\[\(][^\[\(\]\)]*[\]\)]")  # linear: no nesting
 MAX_LINE = 100_000  # characters in one line of a text file
 MAX_COLUMNS = 1000  # columns of a text file

@@ -90,7 +90,7 @@ def fill_gaps(rec: xr.Dataset, max_gap: int = 3) -> xr.Dataset:
     if len(long):
         raise RecordingError(
             f"{len(long)} gaps are longer than {max_gap} samples (at {compact_positions(long)}): "
-            "crop around them, or raise max_gap if interpolating that far is acceptable"
+            "crop around them, or set a max gap that long if interpolating that far is acceptable"
         )
     good = np.isfinite(x)
     filled = ~good

@@ -121,3 +121,18 @@ def test_usage_errors(args):
 def test_bad_setting_value(lorenz_csv):
     out = run("analyze", lorenz_csv, "--delay", "0")
     assert out.returncode == 2 and "delay" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_max_gap_option_fills_longer_gaps(tmp_path):
+    # a 5-sample gap is refused by --fill-gaps alone (default max gap 3) and filled with --max-gap 5
+    x = systems.lorenz(3000, dt=0.01)
+    rows = [f"{0.01 * i:.2f},{'' if 1000 <= i < 1005 else f'{v:.9g}'}" for i, v in enumerate(x)]
+    path = tmp_path / "gap.csv"
+    path.write_text("time_s,x_V\n" + "\n".join(rows) + "\n")
+    refused = run("analyze", str(path), "--fill-gaps", "--quick", cwd=tmp_path)
+    assert refused.returncode == 2 and "longer than 3 samples" in refused.stderr
+    assert "set a max gap that long" in refused.stderr
+    filled = run("analyze", str(path), "--max-gap", "5", "--quick", "--json", cwd=tmp_path)
+    assert filled.returncode == 0, filled.stderr
+    steps = [step["step"] for step in json.loads(filled.stdout)["input"]["preparation"]]
+    assert "fill_gaps" in steps

@@ -116,6 +116,21 @@ def test_datetime_time_column(x):
     np.testing.assert_allclose(rec["time"].values, 0.25 * np.arange(600), atol=1e-9)
 
 
+def test_day_first_dotted_dates_in_a_semicolon_file(tmp_path):
+    # Open data shipped in statsmodels: weekly Mauna Loa CO2 (1958-2001, with missing weeks), written as a
+    # European logger would: day-first dotted dates, semicolons, decimal commas. Weekly stamps are 7 days
+    # = 604800 s apart (calendar arithmetic).
+    from statsmodels.datasets import co2
+
+    data = co2.load_pandas().data.iloc[:600]
+    lines = ["Datum;CO2 [ppm]"] + [f"{d:%d.%m.%Y};{'' if np.isnan(v) else f'{v:.1f}'.replace('.', ',')}"
+                                   for d, v in zip(data.index, data["co2"])]
+    rec = load_recording("\n".join(lines).encode(), name="co2.csv")
+    assert time_unit(rec) == "s" and rec["CO2"].attrs["units"] == "ppm"
+    np.testing.assert_array_equal(np.diff(rec["time"].values), 604800.0)
+    np.testing.assert_allclose(signal(rec), data["co2"].to_numpy(), atol=1e-9)
+
+
 def test_names_then_units_rows():
     rows = "time,temp\ns,K\n" + "".join(f"{k},{300 + k % 7}\n" for k in range(600))
     rec = load_recording(rows.encode(), name="two_headers.csv")
