@@ -357,8 +357,9 @@ class SessionState(param.Parameterized):
         """The settings changes of a finding's one-click fix (None: no such fix, or already made
         in ``settings``, by default the session's).
 
-        Uneven sampling is fixed by resampling; missing values by interpolation when every
-        run is inside the series and no longer than ``settings.max_gap``. Other findings are
+        Uneven sampling is fixed by resampling, a straight-line trend by removing it, missing
+        values by interpolation when every run is inside the series and no longer than
+        ``settings.max_gap``. Other findings are
         fixed by hand (crop, another channel, a new recording), as their text says.
         """
         settings = settings or self.settings
@@ -367,6 +368,8 @@ class SessionState(param.Parameterized):
         changes = None
         if code == "uneven_sampling":
             changes = {"resample": True}
+        elif code == "trend":
+            changes = {"detrend": "linear"}
         elif code == "not_finite" and not details.get("at_edge") \
                 and details.get("longest_run", 0) <= settings.max_gap:
             changes = {"fill_gaps": True}
@@ -457,7 +460,7 @@ class SessionState(param.Parameterized):
 
         def work(progress, cancel):
             result = self._read_bundle(data, name)
-            checks = check_recording(result.prepared)
+            checks = json_attr(result.prepared, "checks", None) or check_recording(result.prepared)
             self._data, self._load_options = None, {}
             self._keys = {"prepared": _key(result.settings, 1), "diagnostics": _key(result.settings, 2)}
             if result.results is not None:

@@ -7,13 +7,16 @@ trusting the numbers, ``"note"`` is for the record.
 Delay coordinates need an evenly sampled, gap-free series of enough samples
 (Packard et al. 1980; Takens 1981; common practice), and a finite recording of
 N samples cannot credibly resolve a correlation dimension above about
-``2 log10 N`` (Eckmann & Ruelle 1992).
+``2 log10 N`` (Eckmann & Ruelle 1992). Embedding also assumes a stationary
+signal (Kantz & Schreiber 2004, sec. 2.4); :func:`check_trend` flags the plainest
+departure, a level that drifts along a straight line.
 
 References
 ----------
 Packard, Crutchfield, Farmer & Shaw, Phys. Rev. Lett. 45 (1980) 712.
 Takens, in Dynamical Systems and Turbulence (Rand & Young, eds.), Springer (1981) 366.
 Eckmann & Ruelle, Physica D 56 (1992) 185.
+Kantz & Schreiber, Nonlinear Time Series Analysis, 2nd ed., Cambridge (2004).
 """
 
 from __future__ import annotations
@@ -274,10 +277,37 @@ def raise_if_refused(findings: list[dict]) -> None:
         raise RecordingError(f"{refused[0]['message']}: {refused[0]['fix']}{more}")
 
 
+def check_trend(rec: xr.Dataset, share: float = 0.5) -> list[dict]:
+    """A warning when a straight line in time explains more than ``share`` of the variance.
+
+    The share is the squared correlation of the samples with their time, R² of the
+    least-squares line. A trend that large dominates every distance between delay
+    vectors: nearest neighbours become neighbours in time, and the dimension and
+    exponents describe the drift, not the dynamics. The 0.5 threshold is this
+    project's rule of thumb, not a published test. Run on the prepared series, so a
+    linear detrend clears it.
+    """
+    x = signal(rec)
+    t = np.asarray(rec["time"].values, dtype=float)
+    ok = np.isfinite(x)
+    if ok.sum() < 3 or np.ptp(x[ok]) == 0:
+        return []
+    r2 = float(np.corrcoef(t[ok], x[ok])[0, 1] ** 2)
+    if not r2 > share:
+        return []
+    return [_finding(
+        "trend", "warn",
+        f"a straight-line trend carries {100 * r2:.0f} % of the variance: neighbours in the delay space "
+        "would be neighbours in time, and the invariants would describe the drift",
+        "remove the straight-line trend (the linear detrend option), or crop to a stretch whose level holds still",
+        trend_share=round(r2, 4),
+    )]
+
+
 def attach_checks(rec: xr.Dataset, findings: list[dict] | None = None) -> xr.Dataset:
     """A copy of ``rec`` with ``findings`` (by default ``check_recording(rec)``) in ``attrs["checks"]``."""
     return with_json_attr(rec, "checks", check_recording(rec) if findings is None else findings)
 
 
-__all__ = ["check_recording", "attach_checks", "refusals", "raise_if_refused", "true_runs",
+__all__ = ["check_recording", "check_trend", "attach_checks", "refusals", "raise_if_refused", "true_runs",
            "compact_positions", "SEVERITIES"]

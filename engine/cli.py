@@ -14,6 +14,7 @@ import warnings
 from pathlib import Path
 
 from .errors import LagspaceError
+from .settings import DETREND_KINDS
 
 
 class _Parser(argparse.ArgumentParser):
@@ -38,6 +39,8 @@ def _analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, metavar="S", help="seed for every random choice (default 0)")
     p.add_argument("--resample", action="store_true", help="resample unevenly sampled data onto a uniform grid")
     p.add_argument("--fill-gaps", action="store_true", help="interpolate short runs of missing values")
+    p.add_argument("--detrend", choices=DETREND_KINDS, metavar="KIND",
+                   help="remove nothing, the mean (default) or a straight-line trend: none, mean or linear")
     p.add_argument("--max-gap", type=int, metavar="N",
                    help="longest run of missing samples --fill-gaps may interpolate (default 3; implies --fill-gaps)")
 
@@ -80,7 +83,8 @@ def _parser() -> _Parser:
 def settings_overrides(args) -> dict:
     """The settings that command-line options set explicitly, as ``{name: value}``."""
     changes = {}
-    for name in ("variable", "sampling_interval", "delay", "dimension", "theiler", "surrogates", "seed", "max_gap"):
+    for name in ("variable", "sampling_interval", "delay", "dimension", "theiler", "surrogates", "seed", "max_gap",
+                 "detrend"):
         value = getattr(args, name, None)
         if value is not None:
             changes[name] = value

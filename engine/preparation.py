@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .checks import attach_checks, check_recording, compact_positions, raise_if_refused, true_runs
+from .checks import attach_checks, check_recording, check_trend, compact_positions, raise_if_refused, true_runs
 from .errors import RecordingError
 from .recording import append_step, signal, time_unit, variable_name
 from .settings import DETREND_KINDS, Settings
@@ -224,7 +224,8 @@ def prepare(rec: xr.Dataset, settings: Settings) -> xr.Dataset:
     In order: ``sampling_interval`` (re-stamp), ``fill_gaps``, ``resample``,
     ``crop_start``/``crop_stop``; then :func:`engine.checks.check_recording`
     runs (a refusal raises :class:`RecordingError`, otherwise the findings go
-    into ``attrs["checks"]``); then ``detrend`` and ``standardise``.
+    into ``attrs["checks"]``); then ``detrend``, :func:`engine.checks.check_trend`
+    and ``standardise``.
     The time coordinate of the result is evenly spaced.
     """
     if not isinstance(settings, Settings):
@@ -241,6 +242,7 @@ def prepare(rec: xr.Dataset, settings: Settings) -> xr.Dataset:
     findings = check_recording(out)  # before detrending, which would hide clipping and quantisation
     raise_if_refused(findings)
     out = detrend(out, settings.detrend)
+    findings += check_trend(out)  # after detrending, which clears it
     if settings.standardise:
         out = standardise(out)
     return attach_checks(_regularise_time(out), findings)

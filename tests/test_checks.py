@@ -12,8 +12,8 @@ import math
 import numpy as np
 import pytest
 
-from engine.checks import (attach_checks, check_recording, compact_positions, raise_if_refused, refusals,
-                           true_runs)
+from engine.checks import (attach_checks, check_recording, check_trend, compact_positions, raise_if_refused,
+                           refusals, true_runs)
 from engine.errors import RecordingError
 from engine.recording import make_recording
 
@@ -135,3 +135,34 @@ def test_bad_arguments(kw):
     with pytest.raises(RecordingError) as err:
         check_recording(make_recording(lorenz(N)), **kw)
     assert "\n" not in str(err.value)
+
+
+def test_trend_share_is_the_squared_correlation_with_time():
+    # analytic: a pure ramp is all trend (R^2 = 1); a cosine symmetric about the record's middle is
+    # uncorrelated with time (odd times even integrates to 0), so R^2 = 0 however large it is
+    t = np.arange(N, dtype=float)
+    ramp = check_trend(make_recording(0.5 * t + 3.0, sampling_interval=1.0, time_unit="s"))
+    assert codes(ramp) == {"trend"} and ramp[0]["details"]["trend_share"] == pytest.approx(1.0, abs=1e-9)
+    even = np.cos(2 * np.pi * 7 * (t - t.mean()) / N)
+    assert check_trend(make_recording(even, sampling_interval=1.0, time_unit="s")) == []
+    assert check_trend(make_recording(even + 0.1 * t, sampling_interval=1.0, time_unit="s"))  # var 7.5e4 vs 0.5
+
+
+@pytest.mark.parametrize("x", [lorenz(N), white_noise(N), ar1(N, 0.9)], ids=["lorenz", "noise", "ar1"])
+def test_stationary_signals_have_no_trend_warning(x):
+    assert check_trend(make_recording(x, sampling_interval=0.01, time_unit="s")) == []
+
+
+def test_co2_trend_is_flagged_and_cleared_by_a_linear_detrend():
+    # Open data shipped in statsmodels: weekly Mauna Loa CO2 1958-2001, a record known for its steady rise
+    # (about 316 to 370 ppm, from memory) under a yearly cycle of a few ppm
+    from statsmodels.datasets import co2
+
+    from engine.preparation import prepare
+    from engine.settings import Settings
+
+    data = co2.load_pandas().data["co2"].interpolate().to_numpy()
+    rec = make_recording(data, sampling_interval=7 * 86400.0, time_unit="s", units="ppm")
+    flagged = json.loads(prepare(rec, Settings()).attrs["checks"])
+    assert "trend" in codes(flagged) and "linear detrend" in next(f for f in flagged if f["code"] == "trend")["fix"]
+    assert "trend" not in codes(json.loads(prepare(rec, Settings(detrend="linear")).attrs["checks"]))

@@ -136,3 +136,12 @@ def test_max_gap_option_fills_longer_gaps(tmp_path):
     assert filled.returncode == 0, filled.stderr
     steps = [step["step"] for step in json.loads(filled.stdout)["input"]["preparation"]]
     assert "fill_gaps" in steps
+
+
+def test_detrend_option_reaches_the_preparation(lorenz_csv):
+    out = run("analyze", lorenz_csv, "--detrend", "linear", "--quick", "--json")
+    assert out.returncode == 0, out.stderr
+    steps = json.loads(out.stdout)["input"]["preparation"]
+    assert {"step": "detrend", "kind": "linear"}.items() <= next(s for s in steps if s["step"] == "detrend").items()
+    bad = run("analyze", lorenz_csv, "--detrend", "cubic")
+    assert bad.returncode == 2 and bad.stderr.count("\n") == 1 and "invalid choice" in bad.stderr

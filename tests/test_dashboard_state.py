@@ -94,6 +94,20 @@ def test_file_no_click_can_fix_keeps_what_was_loaded(loaded):
     assert [loaded.fix_changes(c) for c in loaded.refusals] == [{"resample": True}]
 
 
+def test_trend_warning_fixed_with_one_click(lorenz):
+    # a straight-line trend carrying most of the variance (see test_checks) gets a fix that removes it
+    t = 0.01 * np.arange(lorenz.size)
+    text = "time_s,x_V\n" + "\n".join(f"{a:.6f},{b + 20 * a:.9g}" for a, b in zip(t, lorenz))
+    s = SessionState()
+    assert s.load_bytes(text.encode(), "drift.csv") and s.prepared is not None
+    finding = next(c for c in s.checks if c["code"] == "trend")
+    assert s.fix_changes(finding) == {"detrend": "linear"} and s.apply_fix(finding), s.error
+    assert s.settings.detrend == "linear" and "trend" not in {c["code"] for c in s.checks}
+    reopened = SessionState()
+    assert s.estimate(), s.error
+    assert reopened.open_bundle(s.bundle_bytes(), "drift.zip") and reopened.checks == s.checks
+
+
 def test_crop_recomputes_preparation_and_rejects_impossible_crops(loaded):
     t = loaded.raw["time"].values
     assert loaded.change_settings(crop_start=5.0, crop_stop=25.0), loaded.error

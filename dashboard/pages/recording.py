@@ -14,7 +14,8 @@ from ..state import SessionState
 from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run, with_unit
 
 NO_TIME = "(none: evenly sampled)"
-FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Fill the short gaps"}
+FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Fill the short gaps",
+             "detrend": "Remove the straight-line trend"}
 STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "short gaps interpolated",
               "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
               "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
