@@ -359,8 +359,8 @@ class SessionState(param.Parameterized):
 
         Uneven sampling is fixed by resampling, a straight-line trend by removing it, missing
         values by interpolation when every run is inside the series and no longer than
-        ``settings.max_gap``. Other findings are
-        fixed by hand (crop, another channel, a new recording), as their text says.
+        ``settings.max_gap``. Other findings are fixed by hand (crop, another channel, a new
+        recording), as their text says.
         """
         settings = settings or self.settings
         details = finding.get("details") or {}

@@ -14,7 +14,7 @@ import warnings
 from pathlib import Path
 
 from .errors import LagspaceError
-from .settings import DETREND_KINDS
+from .settings import DETREND_KINDS, Settings
 
 
 class _Parser(argparse.ArgumentParser):
@@ -42,7 +42,8 @@ def _analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--detrend", choices=DETREND_KINDS, metavar="KIND",
                    help="remove nothing, the mean (default) or a straight-line trend: none, mean or linear")
     p.add_argument("--max-gap", type=int, metavar="N",
-                   help="longest run of missing samples --fill-gaps may interpolate (default 3; implies --fill-gaps)")
+                   help=f"longest run of missing samples --fill-gaps may interpolate (default {Settings.max_gap}; "
+                        "implies --fill-gaps)")
 
 
 def _parser() -> _Parser:

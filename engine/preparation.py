@@ -72,7 +72,7 @@ def set_sampling_interval(rec: xr.Dataset, interval: float) -> xr.Dataset:
                              "previous_time_unit": time_unit(rec)})
 
 
-def fill_gaps(rec: xr.Dataset, max_gap: int = 3) -> xr.Dataset:
+def fill_gaps(rec: xr.Dataset, max_gap: int = Settings.max_gap) -> xr.Dataset:
     """Fill runs of at most ``max_gap`` missing (NaN or infinite) samples by linear interpolation in time.
 
     Runs touching the start or end are left as they are (there is nothing to
