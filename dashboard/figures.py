@@ -161,8 +161,9 @@ def _lag_curve(diag: xr.Dataset, var: str, colour: str, marked: int | None, titl
     return hv.Overlay(parts).opts(title=title)
 
 
-def delay_curves(diag: xr.Dataset) -> hv.Layout:
-    """Mutual information and autocorrelation against lag, the chosen delay marked."""
+def delay_curves(diag: xr.Dataset) -> list:
+    """Mutual information and autocorrelation against lag, the chosen delay marked: two
+    figures, each for a pane of its own (a Layout drawn in a hidden tab loses its axes)."""
     delay = _attr(diag, "delay", {})
     tau = delay.get("samples")
     mark = (f"chosen delay {tau} samples = {_fmt(delay.get('time'))} {delay.get('time_unit', '')}".rstrip()
@@ -170,11 +171,12 @@ def delay_curves(diag: xr.Dataset) -> hv.Layout:
     mi = _lag_curve(diag, "mutual_information", style.INK, tau, f"mutual information — {mark}")
     ac = _lag_curve(diag, "autocorrelation", style.SAGE, tau, "autocorrelation")
     zero = hv.HLine(0).opts(color=style.SLATE, line_width=1)
-    return (mi + ac * zero).cols(1).opts(shared_axes=True)
+    return [mi, (ac * zero).opts(title="autocorrelation")]
 
 
-def dimension_curves(diag: xr.Dataset) -> hv.Layout:
-    """False-nearest-neighbour fraction and Cao's E1, E2 against dimension, the chosen one marked."""
+def dimension_curves(diag: xr.Dataset) -> list:
+    """False-nearest-neighbour fraction and Cao's E1, E2 against dimension, the chosen one
+    marked: two figures, each for a pane of its own."""
     dim = _attr(diag, "embedding_dimension", {}).get("value")
     d = diag["dimension"].values
     kd = hv.Dimension("dimension", label="embedding dimension")
@@ -183,7 +185,7 @@ def dimension_curves(diag: xr.Dataset) -> hv.Layout:
                    vdims=[hv.Dimension("fnn", label=_var_label(diag, "false_nearest_fraction"))]).opts(
         color=style.INK, line_width=2, tools=["hover"], **style.PLOT)
     fnn = hv.Overlay([fnn, hv.Scatter(fnn.data).opts(color=style.INK, size=6), *mark]).opts(
-        title=f"false nearest neighbours — chosen dimension {dim}", ylabel="fraction of false neighbours")
+        title=f"false neighbours — chosen dimension {dim}", ylabel="fraction of false neighbours")
     cao = [hv.Curve((diag["dimension"].values, diag[v].values), kdims=[kd],
                     vdims=[hv.Dimension("cao", label="Cao's E1 and E2")], label=label).opts(
         color=colour, line_width=2, tools=["hover"], **style.PLOT)
@@ -191,7 +193,7 @@ def dimension_curves(diag: xr.Dataset) -> hv.Layout:
     one = hv.HLine(1.0).opts(color=style.SLATE, line_width=1, line_dash="dotted")
     cao = hv.Overlay([*cao, one, *mark]).opts(title="Cao's E1 (levels off) and E2 (≈ 1 for noise)",
                                               legend_position="bottom_right")
-    return (fnn + cao).cols(1)
+    return [fnn, cao]
 
 
 def _pair_axes(rec: xr.Dataset, delay: int):
@@ -246,8 +248,9 @@ def turn_view(fig: bokeh_figure, rec: xr.Dataset, delay: int, azimuth: float, el
     fig.title.text = title
 
 
-def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layout:
-    """Small delay plots side by side, one per delay, to see the cloud unfold and then smear."""
+def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> list:
+    """Small delay plots, one per delay, to set side by side and see the cloud unfold and then
+    smear; a list (a pane each), not an hv.Layout, which loses its plots when drawn hidden."""
     x = signal(rec)
     plots = []
     for d in delays:
@@ -255,8 +258,9 @@ def delay_multiples(rec: xr.Dataset, delays, max_points: int = 2000) -> hv.Layou
             continue
         v = delay_vectors(x, 2, int(d))[:max_points]
         plots.append(hv.Path([v]).opts(color=style.INK, line_width=0.7, alpha=0.9, xaxis=None, yaxis=None,
-                                       width=170, height=170, title=f"delay {d}", toolbar=None))
-    return hv.Layout(plots).cols(len(plots) or 1)
+                                       responsive=True, min_width=110, height=170, title=f"delay {d}",
+                                       toolbar=None))
+    return plots
 
 
 # -- invariants ---------------------------------------------------------------------------------------

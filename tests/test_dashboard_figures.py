@@ -99,8 +99,8 @@ def test_turning_a_view_in_place_equals_drawing_it_anew(lorenz_rec):
 
 
 def test_delay_multiples_one_panel_per_delay(lorenz_rec):
-    layout = figures.delay_multiples(lorenz_rec, [2, 8, 16, 64])
-    assert [el.opts.get().kwargs["title"] for el in layout] == ["delay 2", "delay 8", "delay 16", "delay 64"]
+    plots = figures.delay_multiples(lorenz_rec, [2, 8, 16, 64])
+    assert [el.opts.get().kwargs["title"] for el in plots] == ["delay 2", "delay 8", "delay 16", "delay 64"]
 
 
 def _drawn_on_canvas(fig) -> bool:
@@ -112,7 +112,7 @@ def _drawn_on_canvas(fig) -> bool:
 
 def test_recording_figures_render(lorenz_rec):
     for fig in (figures.time_series(lorenz_rec), figures.delay_plot(lorenz_rec, 16),
-                figures.delay_multiples(lorenz_rec, [4, 16]),
+                *figures.delay_multiples(lorenz_rec, [4, 16]),
                 figures.spectrum(None, {"time": 0.7, "strength": 0.3}, unit="s")):
         assert _drawn_on_canvas(fig)
     # Scrolling the page must not zoom a plot the pointer passes over (wheel zoom stays opt-in).
@@ -197,7 +197,7 @@ def test_result_figures_render(henon_analysis):
                 figures.divergence(res, summary), figures.box_counting(res, summary),
                 figures.surrogate_histogram(res, summary), figures.recurrence_plot(res),
                 figures.space_time(res, summary["theiler_window"]["samples"]),
-                figures.delay_curves(diag), figures.dimension_curves(diag)):
+                *figures.delay_curves(diag), *figures.dimension_curves(diag)):
         assert _drawn_on_canvas(fig)
 
 

@@ -54,13 +54,14 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._dim_use.on_click(lambda e: self._override(dimension=self._dim_in.value))
         self._dim_back.on_click(lambda e: self._override(dimension=None))
 
-        self._delay_curves = pn.pane.HoloViews(sizing_mode="stretch_width")
-        self._dim_curves = pn.pane.HoloViews(sizing_mode="stretch_width")
+        # one pane per figure: an hv.Layout drawn while its tab is hidden loses titles and axes
+        self._delay_curves = [pn.pane.HoloViews(sizing_mode="stretch_width") for _ in range(2)]
+        self._dim_curves = [pn.pane.HoloViews(sizing_mode="stretch_width") for _ in range(2)]
         self._delay_plot = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._turn = pn.widgets.IntSlider(label="Turn (°)", start=-180, end=180, value=30, step=5)
         self._tilt = pn.widgets.IntSlider(label="Tilt (°)", start=-90, end=90, value=20, step=5)
         self._view3d = pn.pane.Bokeh(sizing_mode="stretch_width")
-        self._multiples = pn.pane.HoloViews(sizing_mode="stretch_width")
+        self._multiples = pn.Row(sizing_mode="stretch_width")
         self._space_time = pn.pane.HoloViews(sizing_mode="stretch_width")
         self._curves_area = pn.Column(sizing_mode="stretch_width", visible=False)
         self._space_time_text = pn.pane.HTML(sizing_mode="stretch_width")
@@ -130,11 +131,11 @@ class EmbeddingPage(pn.viewable.Viewer):
         if self._drawn[0] is diag and self._drawn[1] is rec:
             return
         self._drawn = (diag, rec)
-        draws = [lambda: setattr(self._delay_curves, "object", figures.delay_curves(diag)),
-                 lambda: setattr(self._dim_curves, "object", figures.dimension_curves(diag))]
+        draws = [lambda: _fill(self._delay_curves, figures.delay_curves(diag)),
+                 lambda: _fill(self._dim_curves, figures.dimension_curves(diag))]
         if rec is not None and tau:
             draws += [lambda: setattr(self._delay_plot, "object", figures.delay_plot(rec, tau)),
-                      lambda: setattr(self._multiples, "object", figures.delay_multiples(rec, _delay_steps(tau))),
+                      lambda: _fill_row(self._multiples, figures.delay_multiples(rec, _delay_steps(tau))),
                       self._show_view3d]
         one_per_tick(self._unless_replaced(draw, diag, rec) for draw in draws)
 
@@ -170,13 +171,13 @@ class EmbeddingPage(pn.viewable.Viewer):
         self._theiler_in.placeholder = str(w.get("samples"))
 
     def __panel__(self):
-        delay_card = card("Delay", self._delay_text, pn.Row(self._delay_in, self._delay_use, self._delay_back),
+        delay_card = card("Delay", self._delay_text, pn.FlexBox(self._delay_in, self._delay_use, self._delay_back),
                           sizing_mode="stretch_width")
-        dim_card = card("Embedding dimension", self._dim_text, pn.Row(self._dim_in, self._dim_use, self._dim_back),
+        dim_card = card("Embedding dimension", self._dim_text, pn.FlexBox(self._dim_in, self._dim_use, self._dim_back),
                         sizing_mode="stretch_width")
         self._curves_area.objects = [
-            pn.Row(card("Mutual information and autocorrelation", self._delay_curves, sizing_mode="stretch_width"),
-                   card("False nearest neighbours and Cao's test", self._dim_curves, sizing_mode="stretch_width"),
+            pn.Row(card("Mutual information and autocorrelation", *self._delay_curves, sizing_mode="stretch_width"),
+                   card("False nearest neighbours and Cao's test", *self._dim_curves, sizing_mode="stretch_width"),
                    sizing_mode="stretch_width"),
             pn.Row(card("Delay plot", self._delay_plot, sizing_mode="stretch_width"),
                    card("3-D view (turn and tilt it with the sliders)", self._view3d, pn.Row(self._turn, self._tilt),
@@ -190,8 +191,18 @@ class EmbeddingPage(pn.viewable.Viewer):
             pn.Row(delay_card, dim_card, sizing_mode="stretch_width"),
             self._curves_area,
             card("Space-time separation and Theiler window", self._space_time_text, self._space_time,
-                 pn.Row(self._theiler_in, self._theiler_use, self._theiler_back), sizing_mode="stretch_width"),
+                 pn.FlexBox(self._theiler_in, self._theiler_use, self._theiler_back), sizing_mode="stretch_width"),
             sizing_mode="stretch_width")
+
+
+def _fill(panes, figs) -> None:
+    for pane, fig in zip(panes, figs):
+        pane.object = fig
+
+
+def _fill_row(row, figs) -> None:
+    """Replace a row's panes at once; each responsive pane sizes itself when its tab is shown."""
+    row.objects = [pn.pane.HoloViews(fig, sizing_mode="stretch_width") for fig in figs]
 
 
 def _delay_steps(tau: int) -> list:

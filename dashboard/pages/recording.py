@@ -86,7 +86,7 @@ class RecordingPage(pn.viewable.Viewer):
         self._checks = pn.Column(sizing_mode="stretch_width")
         self._series = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=280)
         self._spectrum = pn.pane.HoloViews(sizing_mode="stretch_width", min_height=200)
-        self._spectrum_card = card("Spectrum", self._spectrum, width=460)
+        self._spectrum_card = card("Spectrum", self._spectrum, sizing_mode="stretch_width", max_width=460)
         s.param.watch(self._show_pending, "pending")
         s.param.watch(self._show_recording, ["raw", "prepared", "checks", "settings"])
         s.param.watch(self._show_busy, ["busy"])
