@@ -358,8 +358,8 @@ class SessionState(param.Parameterized):
         in ``settings``, by default the session's).
 
         Uneven sampling is fixed by resampling, a straight-line trend by removing it, missing
-        values by interpolation when every run is inside the series and no longer than
-        ``settings.max_gap``. Other findings are fixed by hand (crop, another channel, a new
+        values by interpolation when the check found them fillable (every run inside the series
+        and short, see ``engine.checks``), raising ``max_gap`` where a run needs it. Other findings are fixed by hand (crop, another channel, a new
         recording), as their text says.
         """
         settings = settings or self.settings
@@ -370,9 +370,10 @@ class SessionState(param.Parameterized):
             changes = {"resample": True}
         elif code == "trend":
             changes = {"detrend": "linear"}
-        elif code == "not_finite" and not details.get("at_edge") \
-                and details.get("longest_run", 0) <= settings.max_gap:
+        elif code == "not_finite" and details.get("fill_up_to"):
             changes = {"fill_gaps": True}
+            if details["fill_up_to"] > settings.max_gap:
+                changes["max_gap"] = details["fill_up_to"]
         if not changes or all(getattr(settings, k) == v for k, v in changes.items()):
             return None
         return changes

@@ -31,6 +31,9 @@ from .recording import signal, time_unit, with_json_attr
 from .settings import Settings
 
 MAX_GAP = Settings.max_gap  # the default longest run that interpolation fills
+# Longer interior gaps are still offered interpolation when each is at most this share of the
+# recording and all together at most FILL_TOTAL of it: our own cautious rule, not a published one.
+FILL_LONGEST, FILL_TOTAL = 0.01, 0.05
 
 SEVERITIES = ("refuse", "warn", "note")
 LARGEST_VALUE = 1e100  # sums of N squared distances stay finite in float64
@@ -152,15 +155,21 @@ def _not_finite(x):
     runs = true_runs(bad)
     lengths = runs[:, 1] - runs[:, 0]
     edge = bool(runs[0, 0] == 0 or runs[-1, 1] == x.size)
+    longest = int(lengths.max())
+    fillable = not edge and longest <= max(MAX_GAP, FILL_LONGEST * x.size) and bad.sum() <= FILL_TOTAL * x.size
     fix = (f"short gaps can be filled by linear interpolation (the fill-gaps option, up to {MAX_GAP} samples "
-           f"each unless a longer max gap is set; the longest here is {lengths.max()})")
+           f"each unless a longer max gap is set; the longest here is {longest})")
+    if fillable and longest > MAX_GAP:
+        fix += ("; a straight line across a gap this long hides the dynamics there, so treat results "
+                "that depend on fine structure with care")
     fix += "; gaps at the start or end cannot be interpolated: crop them off" if edge else ""
     fix += "; or crop to a stretch without gaps"
     return [_finding(
         "not_finite", "refuse",
         f"{int(bad.sum())} samples are missing or infinite, at {compact_positions(runs)}",
         fix, nan=int(np.isnan(x).sum()), infinite=int(np.isinf(x).sum()),
-        runs=runs[:50].tolist(), run_count=len(runs), longest_run=int(lengths.max()), at_edge=edge,
+        runs=runs[:50].tolist(), run_count=len(runs), longest_run=longest, at_edge=edge,
+        fill_up_to=longest if fillable else None,
     )]
 
 

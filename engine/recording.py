@@ -91,11 +91,34 @@ def time_unit(rec: xr.Dataset) -> str:
 WORD_UNITS = ("sample", "year", "month")  # time units written as words, plural when not one
 
 
+# longer readings of a span in seconds: (threshold in seconds, seconds per unit, unit)
+_READINGS = ((2 * 365.25 * 86400, 365.25 * 86400, "years"), (2 * 86400, 86400, "days"), (7200, 3600, "hours"),
+             (120, 60, "minutes"))
+
+
+def _amount(value: float) -> str:
+    """A plain number: whole numbers below 10**12 in full ("604,800"), others to 4 significant digits."""
+    if abs(value) < 1e12 and value == int(value):
+        return f"{int(value):,}"
+    return f"{value:.4g}"
+
+
 def duration_text(value, unit: str) -> str:
-    """A duration with its unit: "0.05 s", "3 years", "1 sample"."""
-    unit = str(unit)
-    plural = unit in WORD_UNITS and float(value) != 1.0
-    return f"{float(value):.4g} {unit}{'s' if plural else ''}"
+    """A duration with its unit: "0.05 s", "3 years", "1 sample", "604,800 s (7 days)"."""
+    unit, value = str(unit), float(value)
+    plural = unit in WORD_UNITS and value != 1.0
+    text = f"{_amount(value)} {unit}{'s' if plural else ''}"
+    if unit == "s" and np.isfinite(value):
+        longer = next(((per, name) for limit, per, name in _READINGS if abs(value) >= limit), None)
+        if longer:
+            text += f" ({value / longer[0]:.3g} {longer[1]})"
+    return text
+
+
+def lag_text(lag: dict, unit: str) -> str:
+    """"12 samples = 0.12 s" for ``{"samples": 12, "time": 0.12}`` ("12 samples" when time is in samples)."""
+    text = duration_text(lag["samples"], "sample")
+    return text if unit == "sample" or lag.get("time") is None else f"{text} = {duration_text(lag['time'], unit)}"
 
 
 def json_attr(ds: xr.Dataset, key: str, default=None):

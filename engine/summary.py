@@ -14,7 +14,7 @@ from typing import Optional
 import xarray as xr
 
 from . import __version__
-from .recording import duration_text, json_attr, sampling_interval, series_units, time_unit, variable_name
+from .recording import duration_text, json_attr, lag_text, sampling_interval, series_units, time_unit, variable_name
 from .settings import Settings
 
 CAUTION = ("lagspace is a research tool, not a diagnostic or safety device; for clinical signals or "
@@ -193,12 +193,6 @@ def verdict(summary: dict) -> str:
     return sentence
 
 
-def _samples_text(lag: dict, unit: str) -> str:
-    """"12 samples = 0.12 s" ("12 samples" when the time unit is the sample)."""
-    text = duration_text(lag["samples"], "sample")
-    return text if unit == "sample" or lag.get("time") is None else f"{text} = {duration_text(lag['time'], unit)}"
-
-
 def _per_time(text: str, unit: str) -> str:
     return text if text == "n/a" else f"{text} per {unit}"
 
@@ -210,7 +204,7 @@ def format_text(summary: dict) -> str:
     lines = [
         f"file            {inp['file']}  ({inp['variable']}, {inp['samples']} samples every "
         f"{duration_text(inp['sampling_interval'], unit)})",
-        f"delay           {_samples_text(summary['delay'], unit)}  -- {summary['delay']['reason']}",
+        f"delay           {lag_text(summary['delay'], unit)}  -- {summary['delay']['reason']}",
         f"dimension       {summary['embedding_dimension']['value']}  -- {summary['embedding_dimension']['reason']}",
     ]
     if "correlation_dimension" in summary:
@@ -219,7 +213,7 @@ def format_text(summary: dict) -> str:
         cap = summary.get("capacity_dimension") or {}
         test = summary.get("surrogate_test") or {}
         lines += [
-            f"Theiler window  {_samples_text(summary['theiler_window'], unit)}",
+            f"Theiler window  {lag_text(summary['theiler_window'], unit)}",
             f"D2              {format_estimate(d2.get('value'), d2.get('uncertainty'))}",
             f"capacity dim.   {format_estimate(cap.get('value'), cap.get('uncertainty'))}",
             f"largest exp.    {_per_time(format_estimate(lle.get('per_time_unit'), lle.get('uncertainty')), unit)}",

@@ -18,7 +18,7 @@ from test_hostile_inputs import BUNDLES, RECORDINGS, _case_file, _says
 
 # Refused by the checks, but one click fixes them: they load (replacing the analysed recording, as any
 # new recording does) and show the finding with its fix button. They run last.
-FIXABLE = {"NaN inside": "Fill the short gaps", "inf inside": "Fill the short gaps",
+FIXABLE = {"NaN inside": "Interpolate the gaps", "inf inside": "Interpolate the gaps",
            "uneven time (gap)": "Resample onto an even grid", "uneven time (jitter)": "Resample onto an even grid"}
 # The dashboard's own line where it differs from the engine's (which lists channels to pass to --variable).
 WORDS = {".wav of 3000 channels": ["3000 channels", "too many", "--variable"]}

@@ -169,6 +169,30 @@ def test_short_gaps_fix_interpolates(lorenz):
     assert np.allclose(y - y.mean(), expected - expected.mean(), atol=1e-6)
 
 
+def test_longer_gaps_offer_interpolation_with_a_raised_max_gap(lorenz):
+    x = lorenz.copy()
+    x[1000:1018] = np.nan  # 18 samples, beyond the default max gap but under 1 % of the recording
+    s = SessionState()
+    assert s.load_bytes(csv_bytes(x).replace(b"nan", b""), "long_gap.csv"), s.error
+    finding = next(c for c in s.refusals if c["code"] == "not_finite")
+    assert s.fix_changes(finding) == {"fill_gaps": True, "max_gap": 18}
+    assert s.apply_fix(finding), s.error
+    assert s.settings.max_gap == 18 and not s.refusals
+    # Reference: linear interpolation (numpy.interp) across the gap.
+    raw, y = signal(s.raw), signal(s.prepared)
+    good = np.isfinite(raw)
+    expected = np.interp(np.arange(raw.size), np.flatnonzero(good), raw[good])
+    assert np.allclose(y - y.mean(), expected - expected.mean(), atol=1e-6)
+
+
+def test_gaps_too_long_to_interpolate_are_refused_with_the_crop_advice(lorenz):
+    x = lorenz.copy()
+    x[1000:1000 + x.size // 50] = np.nan  # 2 % of the recording in one run
+    s = SessionState()
+    assert not s.load_bytes(csv_bytes(x).replace(b"nan", b""), "long_gap.csv")
+    assert "crop to a stretch without gaps" in s.error and s.raw is None
+
+
 def test_findings_without_a_one_click_fix(lorenz):
     s = SessionState()
     s.load_bytes(csv_bytes(lorenz), "x.csv")

@@ -55,6 +55,17 @@ def test_verdict_and_text_use_plain_words_and_rounded_numbers(statistic, words):
     assert "2.044 ± 0.051" in printed and "capacity dim.   n/a" in printed
 
 
+def test_long_spans_in_seconds_are_also_read_in_days_hours_or_minutes():
+    # Exact conversions: 1 week = 604,800 s, 1 h = 3,600 s, Julian year = 365.25 d (IAU; common practice).
+    from engine.recording import duration_text
+
+    assert duration_text(604800, "s") == "604,800 s (7 days)"
+    assert duration_text(5 * 3600, "s") == "18,000 s (5 hours)"
+    assert duration_text(300, "s") == "300 s (5 minutes)"
+    assert duration_text(10 * 365.25 * 86400, "s") == "315,576,000 s (10 years)"
+    assert duration_text(90, "s") == "90 s" and duration_text(1234.5, "s") == "1234 s (20.6 minutes)"
+
+
 def test_durations_name_their_unit_in_the_plural_when_due():
     # English usage: "1 sample", "3 years"; symbols such as "s" take no plural (SI Brochure, 9th ed., 5.4.3).
     from engine.recording import duration_text

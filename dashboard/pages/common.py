@@ -27,11 +27,6 @@ def number(value, digits: int = 4) -> str:
     return f"{value:.{digits}g}"
 
 
-def with_unit(value, unit: str | None, digits: int = 4) -> str:
-    text = number(value, digits)
-    return text if value is None or not unit or unit == "1" else f"{text} {unit}"
-
-
 def esc(text) -> str:
     return html.escape(str(text))
 

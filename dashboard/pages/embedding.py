@@ -8,11 +8,11 @@ import json
 import panel as pn
 import param
 
-from engine.recording import json_attr, time_unit
+from engine.recording import json_attr, lag_text, time_unit
 
 from .. import figures
 from ..state import SessionState
-from .common import card, esc, estimate_if_ready, one_per_tick, run, with_unit
+from .common import card, esc, estimate_if_ready, one_per_tick, run
 
 
 def _reason_html(value_text: str, est: dict) -> str:
@@ -122,8 +122,7 @@ class EmbeddingPage(pn.viewable.Viewer):
         d = json_attr(diag, "delay", {})
         unit = time_unit(rec) if rec is not None else "sample"
         tau = d.get("samples")
-        delay_value = f"{tau} samples" + ("" if unit == "sample" else f" = {with_unit(d.get('time'), unit)}")
-        self._delay_text.object = _reason_html(delay_value, d)
+        self._delay_text.object = _reason_html(lag_text(d, unit), d)
         m = json_attr(diag, "embedding_dimension", {})
         self._dim_text.object = _reason_html(f"{m.get('value')}", m)
         self._delay_in.placeholder = str(tau)
@@ -166,8 +165,7 @@ class EmbeddingPage(pn.viewable.Viewer):
         key = (a.settings, json.dumps(a.summary.get("input"), sort_keys=True), w.get("samples"))
         if key != self._space_time_key:  # refits of other estimates do not redraw this
             self._space_time.object, self._space_time_key = figures.space_time(a.results, w.get("samples")), key
-        value = f"{w.get('samples')} samples" + ("" if unit == "sample" else f" = {with_unit(w.get('time'), unit)}")
-        self._space_time_text.object = _reason_html(value, w)
+        self._space_time_text.object = _reason_html(lag_text(w, unit), w)
         self._theiler_in.placeholder = str(w.get("samples"))
 
     def __panel__(self):

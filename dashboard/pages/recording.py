@@ -6,17 +6,17 @@ from __future__ import annotations
 import panel as pn
 import param
 
-from engine.recording import json_attr, sampling_interval, time_unit, variable_name
+from engine.recording import duration_text, json_attr, sampling_interval, time_unit, variable_name
 
 from .. import figures, style
 from ..server import demo_files
 from ..state import SessionState
-from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run, with_unit
+from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run
 
 NO_TIME = "(none: evenly sampled)"
-FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Fill the short gaps",
+FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Interpolate the gaps",
              "detrend": "Remove the straight-line trend"}
-STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "short gaps interpolated",
+STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "gaps interpolated",
               "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
               "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
               "detrend mean": "mean removed", "detrend linear": "straight line removed"}
@@ -27,7 +27,8 @@ def step_words(step: dict) -> str:
     name = step.get("step", "")
     if name == "detrend":
         name = f"detrend {step.get('kind', '')}"
-    return STEP_WORDS.get(name, name.replace("_", " "))
+    words = STEP_WORDS.get(name, name.replace("_", " "))
+    return f"{words} (up to {step['max_gap']} samples each)" if name == "fill_gaps" and "max_gap" in step else words
 
 
 class RecordingPage(pn.viewable.Viewer):
@@ -194,9 +195,9 @@ class RecordingPage(pn.viewable.Viewer):
             ("File", esc(s.source_name or rec.attrs.get("source", ""))),
             ("Variable", f"{esc(name)} ({esc(units) if units not in ('', '1') else 'no unit given'})"),
             ("Samples", f"{n:,}"),
-            ("Sampling interval", with_unit(dt, unit) if unit not in ("sample", "unknown") else
+            ("Sampling interval", duration_text(dt, unit) if unit not in ("sample", "unknown") else
              "not given (times are sample numbers): set it under Preparation"),
-            ("Duration", with_unit(n * dt, unit) if unit != "sample" else f"{n:,} samples"),
+            ("Duration", duration_text(n * dt, unit)),
             ("Preparation", esc(", ".join(steps)) if steps else "none"),
         ]
         body = "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows)
@@ -214,8 +215,9 @@ class RecordingPage(pn.viewable.Viewer):
             if finding.get("fix"):
                 text += f"<br><small><b>Fix:</b> {esc(finding['fix'])}</small>"
             row = [pn.pane.HTML(text, sizing_mode="stretch_width", margin=(4, 6), css_classes=["check-finding"])]
-            if self.state.fix_changes(finding):
-                words = " and ".join(FIX_WORDS.get(k, k.replace("_", " ")) for k in self.state.fix_changes(finding))
+            changes = self.state.fix_changes(finding)
+            if changes:  # a setting such as max_gap goes with its fix and gets no words of its own
+                words = " and ".join(FIX_WORDS[k] for k in changes if k in FIX_WORDS)
                 button = pn.widgets.Button(label=words, color="primary", width=200, align="center")
                 button.on_click(lambda event, f=finding: self._on_fix(f))
                 row.append(button)
