@@ -21,8 +21,14 @@ if not os.path.exists(CHROMIUM) and not os.environ.get("CI"):
     pytestmark.append(pytest.mark.skip(reason="no Chromium at /usr/bin/chromium (install it: see BROWSER.md)"))
 
 
+# A guard against a hang, not a speed target: on a fresh two-core CI machine the four browsers,
+# the first compilation of the kernels and the four analyses share the cores (170 s was too short
+# there once while every action was still being answered).
+BUDGET = 540.0
+
+
 def test_four_sessions_at_once_all_get_the_same_results_and_keep_answering(capsys):
-    found = load_bench.measure(sessions=4, surrogates=19, browser_nice=19)
+    found = load_bench.measure(sessions=4, surrogates=19, browser_nice=19, budget=BUDGET)
     with capsys.disabled():
         load_bench.report(found)
     assert not [e for s in found for e in s.errors]

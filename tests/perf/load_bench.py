@@ -41,7 +41,6 @@ import systems  # noqa: E402
 from served import ARGS, CHROMIUM, dashboard  # noqa: E402
 
 ACTION_TIMEOUT = 15.0     # seconds before an action counts as unanswered
-ANALYSIS_TIMEOUT = 150.0  # seconds one analysis may take
 BUDGET = 170.0            # seconds for all sessions, from opening the pages to reading the results
 IDLE_ACTIONS = 3          # actions per page before Run, for comparison
 PAUSE = 1.0               # seconds between two actions of one page (a person's pace)
@@ -63,6 +62,7 @@ class Session:
     idle: list = field(default_factory=list)      # latencies (s) of the actions before Run
     loaded: list = field(default_factory=list)    # latencies (s) of the actions during the analysis
     unanswered: list = field(default_factory=list)  # what the page showed when an action got no answer
+    prepare_time: Optional[float] = None          # s from opening the page to pressing Run (upload, estimates)
     analysis_time: Optional[float] = None         # s from pressing Run to "Analysis done"
     d2: Optional[str] = None                      # the correlation dimension as the results table shows it
     errors: list = field(default_factory=list)    # page errors and the status line of a failed run
@@ -131,6 +131,7 @@ async def _act(page, session: Session, into: list) -> None:
 
 async def prepare(page, url: str, recording: Path, surrogates: Optional[int], session: Session) -> None:
     """Open the page, upload, accept the suggestions, measure idle actions, go to page 3."""
+    start = time.monotonic()
     page.on("websocket", session.watch)
     page.on("pageerror", lambda e: session.errors.append(f"page error: {e.name}: {e.message} {(e.stack or '')[:300]}"))
     await page.goto(url)
@@ -146,14 +147,16 @@ async def prepare(page, url: str, recording: Path, surrogates: Optional[int], se
         count = page.locator(".surrogate-count input")
         await count.fill(str(surrogates))
         await count.press("Enter")
+    session.prepare_time = time.monotonic() - start
 
 
-async def run_and_act(page, session: Session) -> None:
-    """Press Run, then keep turning the 3-D view until the status line says the analysis ended."""
+async def run_and_act(page, session: Session, timeout: float) -> None:
+    """Press Run, then keep turning the 3-D view until the status line says the analysis ended
+    (at most ``timeout`` seconds)."""
     await page.locator(".run-analysis button").click()
     start = time.monotonic()
     finished = asyncio.ensure_future(
-        page.locator(".status-line", has_text=FINISHED).wait_for(timeout=ANALYSIS_TIMEOUT * 1000))
+        page.locator(".status-line", has_text=FINISHED).wait_for(timeout=timeout * 1000))
     await page.get_by_text("2 · Delay & dimension").first.click()
     while not finished.done():
         await _act(page, session, session.loaded)
@@ -161,7 +164,7 @@ async def run_and_act(page, session: Session) -> None:
     try:
         await finished
     except PlaywrightTimeout:
-        session.errors.append(f"the analysis did not end within {ANALYSIS_TIMEOUT:g} s")
+        session.errors.append(f"the analysis did not end within {timeout:g} s")
         return
     session.analysis_time = time.monotonic() - start
     status = await page.locator(".status-line span").inner_text()
@@ -193,8 +196,10 @@ def niced_browser(folder: Path, nice: int) -> str:
 
 
 async def run_sessions(url: str, recording: Path, found: list[Session], surrogates: Optional[int],
-                       chromium: str = CHROMIUM) -> None:
-    """One browser context per Session in ``found``: prepare, run_and_act (started together), read_results."""
+                       chromium: str = CHROMIUM, budget: float = BUDGET) -> None:
+    """One browser context per Session in ``found``: prepare, run_and_act (started together, each
+    given what is left of ``budget``), read_results."""
+    start = time.monotonic()
     async with async_playwright() as pw:
         browser = await pw.chromium.launch(executable_path=chromium, args=ARGS)
         try:
@@ -203,23 +208,29 @@ async def run_sessions(url: str, recording: Path, found: list[Session], surrogat
             await asyncio.gather(*(prepare(p, url, recording, surrogates, s) for p, s in zip(pages, found)))
             global RUN_PRESSED
             RUN_PRESSED = time.monotonic()
-            await asyncio.gather(*(run_and_act(p, s) for p, s in zip(pages, found)))
+            left = budget - (time.monotonic() - start)
+            await asyncio.gather(*(run_and_act(p, s, left) for p, s in zip(pages, found)))
             await asyncio.gather(*(read_results(p, s) for p, s in zip(pages, found)))
         finally:
             await browser.close()
 
 
-def measure(sessions: int = 4, surrogates: Optional[int] = None, browser_nice: int = 0) -> list[Session]:
-    """Start a server, run ``sessions`` sessions at once (within BUDGET), stop the server; the
-    browsers run at ``browser_nice`` (see niced_browser)."""
+def measure(sessions: int = 4, surrogates: Optional[int] = None, browser_nice: int = 0,
+            budget: float = BUDGET) -> list[Session]:
+    """Start a server, run ``sessions`` sessions at once (within ``budget`` seconds), stop the
+    server; the browsers run at ``browser_nice`` (see niced_browser)."""
     with tempfile.TemporaryDirectory() as tmp, dashboard(Path(tmp) / "server.log") as url:
         recording = write_recording(Path(tmp) / "lorenz_x.csv")
         found = [Session() for _ in range(sessions)]
         try:
             chromium = niced_browser(Path(tmp), browser_nice)
-            asyncio.run(asyncio.wait_for(run_sessions(url, recording, found, surrogates, chromium), BUDGET))
+            asyncio.run(asyncio.wait_for(run_sessions(url, recording, found, surrogates, chromium, budget),
+                                         budget + 30))
         except asyncio.TimeoutError:
-            found[0].errors.append(f"the sessions did not finish within {BUDGET:g} s")
+            ready = sum(s.prepare_time is not None for s in found)
+            done = sum(s.analysis_time is not None for s in found)
+            found[0].errors.append(f"the sessions did not finish within {budget:g} s ({ready} of {len(found)} "
+                                   f"ready to run, {done} analyses done)")
         return found
 
 
@@ -248,7 +259,8 @@ def report(found: list[Session]) -> None:
     print(f"{len(found)} sessions, UI action: one step of the 3-D view's Turn slider, answered by the server")
     for i, s in enumerate(found):
         t = "n/a" if s.analysis_time is None else f"{s.analysis_time:.1f} s"
-        print(f"  session {i}: analysis wall time {t}, D2 = {s.d2}, "
+        ready = "n/a" if s.prepare_time is None else f"{s.prepare_time:.1f} s"
+        print(f"  session {i}: ready to run after {ready}, analysis wall time {t}, D2 = {s.d2}, "
               f"{len(s.loaded)} actions during it, {len(s.unanswered)} unanswered")
     print(f"idle (before Run):  {_stats([x for s in found for x in s.idle])}")
     print(f"during the runs:    {_stats([x for s in found for x in s.loaded])}")
