@@ -27,7 +27,7 @@ import numpy as np
 import xarray as xr
 
 from .errors import RecordingError
-from .recording import signal, time_unit, with_json_attr
+from .recording import UNSTATED, signal, time_unit, with_json_attr
 from .settings import Settings
 
 MAX_GAP = Settings.max_gap  # the default longest run that interpolation fills
@@ -115,7 +115,7 @@ def check_recording(
             findings += _quantisation(finite, quantisation_levels)
             findings += _clipping(x, clip_run)
         findings += _sampling(t, gap_factor, jitter_tolerance)
-    if time_unit(rec) == "unknown":
+    if time_unit(rec) == UNSTATED:
         findings.append(_finding(
             "time_unit_unknown", "note", "the file does not say in what unit time is given",
             "give the sampling interval in seconds so that rates and exponents come out per second",

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import warnings
 from pathlib import Path
@@ -139,6 +140,9 @@ def main(argv=None) -> int:
         if args.command == "serve":
             return _serve(args)
         return _warnings_after({"analyze": _analyze, "batch": _batch}[args.command], args)
+    except BrokenPipeError:  # the reader went away (`lagspace analyze f | head`): nothing more to say
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())  # as the Python docs' signal module note does
+        return 1
     except _UsageError as exc:
         print(f"error: {_one_line(exc)}; see `lagspace {_command(argv)}--help`", file=sys.stderr)
     except LagspaceError as exc:

@@ -39,7 +39,7 @@ from pandas.tseries.api import guess_datetime_format
 
 from .checks import attach_checks, compact_positions, true_runs
 from .errors import RecordingError
-from .recording import make_recording
+from .recording import UNSTATED, make_recording
 
 FORMATS = "CSV/TSV/TXT text, NetCDF 3 or 4 (.nc), .npy or .wav"
 FORMAT_NAMES = ("text", "netcdf", "npy", "wav")  # the "format" that describe_source reports
@@ -259,6 +259,10 @@ def _too_big(base, size, limit):
     )
 
 
+SPREADSHEETS = (".xlsx", ".xlsm", ".xls", ".ods")
+OLE2 = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"  # the compound-file header of old .xls workbooks
+
+
 def _magic(data: bytes) -> str | None:
     """The binary format that ``data`` starts like, if any."""
     if data[:4] in (b"CDF\x01", b"CDF\x02"):
@@ -275,6 +279,9 @@ def _magic(data: bytes) -> str | None:
 def _parse(data: bytes, base: str, time_column, max_samples, netcdf4_timeout) -> _Contents:
     ext = os.path.splitext(base)[1].lower()
     kind = _magic(data)
+    if ext in SPREADSHEETS or data[:8] == OLE2:
+        raise RecordingError(f"{base} is a spreadsheet workbook, which lagspace does not read: save the sheet "
+                             "with the recording as CSV (Save As, CSV, in the spreadsheet program) and give that")
     if data[:4] in (b"PK\x03\x04", b"PK\x05\x06"):
         raise RecordingError(f"{base} is a zip archive, not a recording, and not a readable lagspace bundle: "
                              "unzip it and give the recording inside, or give a bundle that lagspace wrote")
@@ -323,7 +330,7 @@ def _choose(contents: _Contents, variable) -> _Series:
     listing = _listing([f"{i}: {_quoted(s.name)}" for i, s in series])
     if variable is None:
         if len(series) > 1:
-            raise RecordingError(f"the file has {len(series)} channels; choose one with variable (name or index): {listing}")
+            raise RecordingError(f"the file has {len(series)} channels; choose one by name or index (--variable on the command line): {listing}")
         return series[0][1]
     if isinstance(variable, (int, np.integer)) and not isinstance(variable, bool):
         for i, s in series:
@@ -362,7 +369,7 @@ def _time_factor(units: str):
         return 1.0, _CALENDAR[u.lower()]
     if u.lower() in _INDEX_NAMES:
         return 1.0, "sample"
-    return 1.0, (u or "unknown")
+    return 1.0, (u or UNSTATED)
 
 
 # -- text ---------------------------------------------------------------------------

@@ -88,7 +88,8 @@ def time_unit(rec: xr.Dataset) -> str:
     return str(rec.attrs.get("time_unit", "sample"))
 
 
-WORD_UNITS = ("sample", "year", "month")  # time units written as words, plural when not one
+UNSTATED = "time unit"  # the time unit of a time column whose file does not name one
+WORD_UNITS = ("sample", "year", "month", UNSTATED)  # time units written as words, plural when not one
 
 
 # longer readings of a span in seconds: (threshold in seconds, seconds per unit, unit)

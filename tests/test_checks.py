@@ -15,7 +15,7 @@ import pytest
 from engine.checks import (attach_checks, check_recording, check_trend, compact_positions, raise_if_refused,
                            refusals, true_runs)
 from engine.errors import RecordingError
-from engine.recording import make_recording
+from engine.recording import UNSTATED, make_recording
 
 from systems import ar1, henon, lorenz, white_noise
 
@@ -109,7 +109,7 @@ def test_clipping():
 
 
 def test_unknown_time_unit_is_noted():
-    rec = make_recording(lorenz(N), np.arange(N) * 0.01, time_unit="unknown")
+    rec = make_recording(lorenz(N), np.arange(N) * 0.01, time_unit=UNSTATED)
     assert "time_unit_unknown" in codes(check_recording(rec), "note")
 
 

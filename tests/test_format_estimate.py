@@ -79,5 +79,20 @@ def test_durations_name_their_unit_in_the_plural_when_due():
     assert "delay           4 samples  -- r" in text and "4 sample\n" not in text
     summary["input"]["time_unit"] = "year"
     assert "4 samples = 4 years" in format_text(summary) and "every 1 year)" in format_text(summary)
+
+
+def test_a_time_column_without_a_unit_reads_in_time_units():
+    # A time column with no unit in its file: spans read "4.3 time units", rates "per time unit".
+    from engine.loading import load_recording
+    from engine.recording import UNSTATED, duration_text, time_unit
+
+    rec = load_recording(b"time,strain\n" + b"".join(b"%.2f,%.5f\n" % (0.05 * i, (i * 0.37) % 1)
+                                                       for i in range(600)), name="logger.csv")
+    assert time_unit(rec) == UNSTATED
+    assert duration_text(4.3, UNSTATED) == "4.3 time units" and duration_text(1, UNSTATED) == "1 time unit"
+    summary = dict(_summary(), verdict="v")
+    summary["input"]["time_unit"], summary["input"]["sampling_interval"] = UNSTATED, 0.05
+    text = format_text(summary)
+    assert "every 0.05 time units)" in text and "per time unit" in text and "unknown" not in text
     summary["largest_lyapunov_exponent"] = {"per_time_unit": None}
     assert "largest exp.    n/a\n" in format_text(summary)

@@ -352,6 +352,10 @@ BAD = {
     "ragged": (b"1,2\n3,4\n5,6,7\n", "r.csv", "same columns"),
     "word in numbers": (b"v\n1\n2\noops\n4\n5\n", "n.csv", "oops"),
     "complex npy": (None, "z.npy", "not real numbers"),
+    # Office Open XML workbooks are zip archives (ECMA-376 Part 2); old .xls files start with the
+    # compound-file signature D0 CF 11 E0 A1 B1 1A E1 ([MS-CFB] 2.2).
+    "workbook": (b"PK\x03\x04" + bytes(60), "run3.xlsx", "save the sheet with the recording as CSV"),
+    "old workbook, no name": (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504), "upload", "spreadsheet"),
 }
 
 

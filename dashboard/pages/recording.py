@@ -6,7 +6,7 @@ from __future__ import annotations
 import panel as pn
 import param
 
-from engine.recording import duration_text, json_attr, sampling_interval, time_unit, variable_name
+from engine.recording import UNSTATED, duration_text, json_attr, sampling_interval, time_unit, variable_name
 
 from .. import figures, style
 from ..server import demo_files
@@ -14,6 +14,8 @@ from ..state import SessionState
 from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run
 
 NO_TIME = "(none: evenly sampled)"
+UNIT_HINT = {"sample": "not given (times are sample numbers): set it under Preparation",
+             UNSTATED: "{} (the file does not name the unit: set the interval in seconds under Preparation)"}
 FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Interpolate the gaps",
              "detrend": "Remove the straight-line trend"}
 STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "gaps interpolated",
@@ -170,9 +172,9 @@ class RecordingPage(pn.viewable.Viewer):
         self._detrend.value, self._standardise.value = st.detrend, st.standardise
         self._crop_start.value, self._crop_stop.value = st.crop_start, st.crop_stop
         unit = time_unit(rec)
-        unit = "sample number" if unit in ("sample", "unknown") else unit
+        unit = {"sample": "sample number", UNSTATED: "the file's time unit"}.get(unit, unit)
         self._crop_start.label, self._crop_stop.label = f"Keep from ({unit})", f"Keep until ({unit})"
-        self._set_interval.visible = time_unit(s.raw) in ("sample", "unknown") or st.sampling_interval is not None
+        self._set_interval.visible = time_unit(s.raw) in ("sample", UNSTATED) or st.sampling_interval is not None
         self._set_interval.value = st.sampling_interval
         self._checks.objects = self._check_rows(s.checks)
         if rec is not self._drawn:
@@ -195,8 +197,7 @@ class RecordingPage(pn.viewable.Viewer):
             ("File", esc(s.source_name or rec.attrs.get("source", ""))),
             ("Variable", f"{esc(name)} ({esc(units) if units not in ('', '1') else 'no unit given'})"),
             ("Samples", f"{n:,}"),
-            ("Sampling interval", duration_text(dt, unit) if unit not in ("sample", "unknown") else
-             "not given (times are sample numbers): set it under Preparation"),
+            ("Sampling interval", UNIT_HINT.get(unit, "{}").format(duration_text(dt, unit))),
             ("Duration", duration_text(n * dt, unit)),
             ("Preparation", esc(", ".join(steps)) if steps else "none"),
         ]
