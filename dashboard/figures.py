@@ -19,7 +19,7 @@ from bokeh.palettes import interp_palette
 from bokeh.plotting import figure as bokeh_figure
 
 from engine.embedding import delay_vectors
-from engine.recording import signal, time_unit, variable_name
+from engine.recording import UNSTATED, duration_text, signal, time_unit, variable_name
 
 from . import style
 
@@ -116,21 +116,25 @@ def _note(text: str) -> hv.Text:
 
 
 # -- recording ----------------------------------------------------------------------------------------
+TIME_LABELS = {"sample": "sample number", UNSTATED: "time (unit not given)"}
+
+
 def time_series(rec: xr.Dataset, max_points: int = MAX_LINE_POINTS) -> hv.Curve:
     """The recording against time, thinned to a min/max envelope for long series."""
     t, x = envelope(rec["time"].values, signal(rec), max_points)
     n = rec.sizes["time"]
     title = f"{variable_name(rec)}: {n:,} samples" + ("" if n <= max_points else ", envelope drawn")
-    return hv.Curve((t, x), kdims=[hv.Dimension("time", label=f"time ({time_unit(rec)})")],
+    return hv.Curve((t, x), kdims=[hv.Dimension("time", label=TIME_LABELS.get(time_unit(rec), f"time ({time_unit(rec)})"))],
                     vdims=[hv.Dimension("value", label=_signal_label(rec))]).opts(
-        color=style.INK, line_width=1, title=title, tools=["hover", "xwheel_zoom"], **style.PLOT)
+        color=style.INK, line_width=1, title=title, tools=["hover", "xwheel_zoom", "xbox_select"],
+        active_tools=["xbox_select"], **style.PLOT)
 
 
 def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = "sample"):
     """Power spectrum (log power) with the dominant period marked at frequency 1 / period."""
     if spec is None or "power" not in spec:
         if dominant and dominant.get("time"):
-            return _note(f"dominant period {_fmt(dominant['time'])} {unit}\n"
+            return _note(f"dominant period {duration_text(dominant['time'], unit)}\n"
                          f"({100 * (dominant.get('strength') or 0):.0f} % of the power in its peak)")
         return _note(dominant.get("reason", "no dominant period") if dominant else "no spectrum yet")
     freq_dim = spec["power"].dims[0]
@@ -145,7 +149,7 @@ def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = 
     marks = []
     if dominant and dominant.get("time"):
         marks.append(hv.VLine(1.0 / dominant["time"]).opts(color=style.CLAY, line_dash="dashed", line_width=2))
-        title += f" — dominant period {_fmt(dominant['time'])} {unit}"
+        title += f" — dominant period {duration_text(dominant['time'], unit)}"
     return hv.Overlay([curve, *marks]).opts(title=title)
 
 

@@ -143,3 +143,28 @@ def test_upload_run_download_reopen(server, browser, recording_file, tmp_path):
     assert problems == [] and fresh_problems == []
     page.close()
     fresh.close()
+
+
+def test_dragging_across_the_time_series_crops_the_recording(server, browser, recording_file):
+    page, problems = _open(browser, server)
+    page.locator("input.filepond--browser").set_input_files(str(recording_file))
+    page.locator("table.facts").get_by_text("3,000").wait_for(timeout=60_000)
+    series = page.locator(".card", has_text="Time series").last.locator("canvas").first
+    series.scroll_into_view_if_needed()
+    box = series.bounding_box()
+    y = box["y"] + 0.5 * box["height"]
+    page.mouse.move(box["x"] + 0.3 * box["width"], y)
+    page.mouse.down()
+    page.mouse.move(box["x"] + 0.6 * box["width"], y, steps=8)
+    page.mouse.up()
+    page.get_by_text("Press Apply preparation").wait_for(timeout=30_000)
+    fields = page.locator(".card", has_text="Preparation").last.locator("input[type=text], input:not([type])")
+    lo, hi = (float(v) for v in fields.evaluate_all("els => els.map(e => e.value)")[:2])
+    # the fields hold the times of samples (every 0.01 s) inside the recording's 0 to 29.99 s
+    assert 0 < lo < hi < 29.99 and abs(lo * 100 - round(lo * 100)) < 1e-6 and abs(hi * 100 - round(hi * 100)) < 1e-6
+    page.get_by_role("button", name="Apply preparation").click()
+    kept = round((hi - lo) / 0.01) + 1
+    page.locator("table.facts").get_by_text(f"{kept:,}", exact=True).wait_for(timeout=60_000)
+    assert "cropped" in page.locator("table.facts").inner_text()
+    assert problems == []
+    page.close()

@@ -3,6 +3,7 @@ read the checks in plain words and apply their fixes, look at the series and its
 
 from __future__ import annotations
 
+import holoviews as hv
 import panel as pn
 import param
 
@@ -14,6 +15,7 @@ from ..state import SessionState
 from .common import SEVERITY_COLOURS, SEVERITY_WORDS, card, esc, estimate_if_ready, run
 
 NO_TIME = "(none: evenly sampled)"
+CROP_HINT = "<small>Or drag across the time series below to select the stretch to keep.</small>"
 UNIT_HINT = {"sample": "not given (times are sample numbers): set it under Preparation",
              UNSTATED: "{} (the file does not name the unit: set the interval in seconds under Preparation)"}
 FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Interpolate the gaps",
@@ -78,6 +80,7 @@ class RecordingPage(pn.viewable.Viewer):
         self._standardise = pn.widgets.Checkbox(label="Scale to unit variance", value=st.standardise)
         self._set_interval = pn.widgets.FloatInput(label="Sampling interval (s)", value=None, start=0,
                                                    sizing_mode="stretch_width")
+        self._crop_hint = pn.pane.HTML(CROP_HINT, margin=(0, 10), sizing_mode="stretch_width")
         self._apply = pn.widgets.Button(label="Apply preparation", color="primary", width=170)
         self._apply.on_click(self._on_apply)
 
@@ -178,7 +181,28 @@ class RecordingPage(pn.viewable.Viewer):
         self._set_interval.value = st.sampling_interval
         self._checks.objects = self._check_rows(s.checks)
         if rec is not self._drawn:
-            self._series.object, self._drawn = figures.time_series(rec), rec
+            self._draw_series(rec)
+
+    def _draw_series(self, rec) -> None:
+        """The time series; a range dragged across it fills in the crop fields with the times of its
+        first and last sample (applied when the user presses Apply preparation)."""
+        fig = figures.time_series(rec)
+        self._selection = hv.streams.BoundsX(source=fig)
+        self._selection.add_subscriber(self._on_select)
+        self._series.object, self._drawn = fig, rec
+        self._crop_hint.object = CROP_HINT
+
+    def _on_select(self, boundsx=None, **_):
+        if boundsx is None or None in boundsx or boundsx[0] == boundsx[1]:
+            return
+        t = self._drawn["time"].values  # the first and last sample inside the selection
+        inside = t[(t >= min(boundsx)) & (t <= max(boundsx))]
+        if inside.size < 2:
+            return
+        lo, hi = float(inside[0]), float(inside[-1])
+        self._crop_start.value, self._crop_stop.value = lo, hi
+        self._crop_hint.object = (f"<small><b>Selected {lo:g} to {hi:g}.</b> Press Apply preparation to keep only "
+                                  "this stretch, or clear the fields to keep everything.</small>")
 
     def _show_spectrum(self, *events):
         rec = self.state.prepared
@@ -232,7 +256,7 @@ class RecordingPage(pn.viewable.Viewer):
                     self._dropper, self._limits_note, pn.Row(self._demo, self._demo_button, sizing_mode="stretch_width"),
                     sizing_mode="stretch_width")
         prep = card("Preparation", pn.pane.HTML("<small>Remove before analysis:</small>", margin=(0, 6)),
-                    self._detrend, pn.Row(self._crop_start, self._crop_stop), self._standardise,
+                    self._detrend, pn.Row(self._crop_start, self._crop_stop), self._crop_hint, self._standardise,
                     self._set_interval, self._apply, sizing_mode="stretch_width")
         self._loaded.objects = [
             pn.Row(card("What was loaded", self._summary, sizing_mode="stretch_width"), prep,
