@@ -131,7 +131,7 @@ def time_series(rec: xr.Dataset, max_points: int = MAX_LINE_POINTS) -> hv.Curve:
 
 
 def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = "sample"):
-    """Power spectrum (log power) with the dominant period marked at frequency 1 / period."""
+    """Power spectral density (PSD, log-log) with the dominant period marked at frequency 1 / period."""
     if spec is None or "power" not in spec:
         if dominant and dominant.get("time"):
             return _note(f"dominant period {duration_text(dominant['time'], unit)}\n"
@@ -143,8 +143,8 @@ def spectrum(spec: xr.Dataset | None, dominant: dict | None = None, unit: str = 
     keep = (f > 0) & (p > 0)
     freq_unit = spec[freq_dim].attrs.get("units", "1/sample")
     curve = hv.Curve((f[keep], p[keep]), kdims=[hv.Dimension("frequency", label=f"frequency ({freq_unit})")],
-                     vdims=[hv.Dimension("power", label=_var_label(spec, "power"))]).opts(
-        color=style.INK, line_width=1, logy=True, tools=["hover"], **style.PLOT)
+                     vdims=[hv.Dimension("power", label=_with_units("PSD", spec["power"].attrs.get("units")))]).opts(
+        color=style.INK, line_width=1, logx=True, logy=True, tools=["hover"], **style.PLOT)
     title = "power spectrum"
     marks = []
     if dominant and dominant.get("time"):

@@ -141,7 +141,7 @@ def _length(n, min_samples, few_samples):
         )]
     return short + [_finding(
         "dimension_ceiling", "note",
-        f"{n} samples cannot credibly resolve a correlation dimension above about {ceiling:.1f} "
+        f"{n:,} samples cannot credibly resolve a correlation dimension above about {ceiling:.1f} "
         "(2 log10 N, Eckmann & Ruelle 1992)",
         "treat larger estimates as unresolved; a longer recording raises the ceiling", samples=n,
         ceiling=round(ceiling, 3),
