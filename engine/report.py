@@ -13,8 +13,8 @@ import io
 
 import numpy as np
 
-from .recording import signal, time_unit
-from .summary import STATISTIC_WORDS, format_estimate
+from .recording import duration_text, lag_text, signal, time_unit
+from .summary import STATISTIC_WORDS, format_estimate, step_text, surrogate_words
 
 
 def _figure_png(draw, width=6.0, height=2.6) -> str:
@@ -131,30 +131,29 @@ def report_html(analysis) -> str:
     inp, unit = s["input"], s["input"]["time_unit"]
     rows = [
         _row("file", f"{inp['file']} ({inp['variable']} [{inp['units']}])", f"SHA-256 {inp['sha256']}"),
-        _row("samples", f"{inp['samples']} every {inp['sampling_interval']:g} {unit}"),
-        _row("delay", f"{s['delay']['samples']} samples = {s['delay']['time']:g} {unit}", s["delay"]["reason"]),
+        _row("samples", f"{inp['samples']:,} every {duration_text(inp['sampling_interval'], unit)}"),
+        _row("delay", lag_text(s["delay"], unit), s["delay"]["reason"]),
         _row("embedding dimension", str(s["embedding_dimension"]["value"]), s["embedding_dimension"]["reason"]),
     ]
     figures = [_series(analysis), _mutual_information(analysis), _false_neighbours(analysis)]
     if analysis.results is not None:
-        lle = s["largest_lyapunov_exponent"] or {}
+        lle, test = s["largest_lyapunov_exponent"] or {}, s["surrogate_test"] or {}
         rows += [
-            _row("Theiler window", f"{s['theiler_window']['samples']} samples", s["theiler_window"]["reason"]),
+            _row("Theiler window", lag_text(s["theiler_window"], unit), s["theiler_window"]["reason"]),
             _row("correlation dimension D2", _pm(s["correlation_dimension"]), s["correlation_dimension"].get("reason")),
             _row("correlation entropy K2", _pm(s.get("correlation_entropy"), "per_time_unit", unit=f"per {unit}"),
                  (s.get("correlation_entropy") or {}).get("reason")),
             _row("capacity dimension", _pm(s.get("capacity_dimension")), (s.get("capacity_dimension") or {}).get("reason")),
             _row("largest Lyapunov exponent", _pm(lle, "per_time_unit", unit=f"per {unit}"), lle.get("reason")),
-            _row("surrogate test", f"p = {format_estimate((s['surrogate_test'] or {}).get('p_value'), digits=2)}, "
-                 f"rejects linear null: "
-                 f"{(s['surrogate_test'] or {}).get('rejects_linear_null')}", (s["surrogate_test"] or {}).get("reason")),
+            _row("surrogate test", f"p = {format_estimate(test.get('p_value'), digits=2)}: {surrogate_words(test)}",
+                 test.get("reason")),
         ]
         figures += [_local_slopes(analysis), _divergence(analysis)]
         if "surrogate_statistic" in analysis.results:
             figures.append(_surrogates(analysis))
     images = "\n".join(f'<img alt="figure" src="data:image/png;base64,{_figure_png(f)}">' for f in figures)
     warnings = "".join(f"<li>{html.escape(w)}</li>" for w in s["warnings"]) or "<li>none</li>"
-    steps = "".join(f"<li>{html.escape(str(step))}</li>" for step in inp["preparation"]) or "<li>none</li>"
+    steps = "".join(f"<li>{html.escape(step_text(step))}</li>" for step in inp["preparation"]) or "<li>none</li>"
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>lagspace report: {html.escape(inp['file'])}</title>
 <style>body{{font-family:sans-serif;max-width:60em;margin:2em auto;color:#222}}

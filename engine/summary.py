@@ -193,6 +193,27 @@ def verdict(summary: dict) -> str:
     return sentence
 
 
+STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "gaps interpolated",
+              "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
+              "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
+              "detrend mean": "mean removed", "detrend linear": "straight line removed"}
+
+
+def step_text(step: dict) -> str:
+    """Plain words for one preparation step recorded in a Recording's ``preparation`` attribute."""
+    name = step.get("step", "")
+    if name == "detrend":
+        name = f"detrend {step.get('kind', '')}"
+    words = STEP_WORDS.get(name, name.replace("_", " "))
+    return f"{words} (up to {step['max_gap']} samples each)" if name == "fill_gaps" and "max_gap" in step else words
+
+
+def surrogate_words(test: dict) -> str:
+    """What a surrogate test found, in words: "differs from linear noise", ... or why it was not run."""
+    return {True: "differs from linear noise", False: "not distinguishable from linear noise"}.get(
+        test.get("rejects_linear_null"), test.get("reason") or "not run")
+
+
 def _per_time(text: str, unit: str) -> str:
     return text if text == "n/a" else f"{text} per {unit}"
 
@@ -202,7 +223,7 @@ def format_text(summary: dict) -> str:
     inp = summary["input"]
     unit = inp["time_unit"]
     lines = [
-        f"file            {inp['file']}  ({inp['variable']}, {inp['samples']} samples every "
+        f"file            {inp['file']}  ({inp['variable']}, {inp['samples']:,} samples every "
         f"{duration_text(inp['sampling_interval'], unit)})",
         f"delay           {lag_text(summary['delay'], unit)}  -- {summary['delay']['reason']}",
         f"dimension       {summary['embedding_dimension']['value']}  -- {summary['embedding_dimension']['reason']}",
@@ -217,8 +238,7 @@ def format_text(summary: dict) -> str:
             f"D2              {format_estimate(d2.get('value'), d2.get('uncertainty'))}",
             f"capacity dim.   {format_estimate(cap.get('value'), cap.get('uncertainty'))}",
             f"largest exp.    {_per_time(format_estimate(lle.get('per_time_unit'), lle.get('uncertainty')), unit)}",
-            f"surrogates      p = {format_estimate(test.get('p_value'), digits=2)}, rejects linear null: "
-            f"{test.get('rejects_linear_null')}",
+            f"surrogates      p = {format_estimate(test.get('p_value'), digits=2)}: {surrogate_words(test)}",
         ]
     lines += [f"warning         {w}" for w in summary["warnings"]]
     lines += [f"verdict         {summary['verdict']}", f"caution         {summary['caution']}"]

@@ -78,6 +78,15 @@ def test_report_is_self_contained(data):
     assert "http://" not in page and "https://" not in page
 
 
+def test_report_speaks_plain_words(analysis, data):
+    page = zipfile.ZipFile(io.BytesIO(data)).read("report.html").decode()
+    assert "{'step'" not in page and "rejects linear null" not in page  # no raw records or flags
+    assert "mean removed" in page  # the default preparation step, in words
+    test = analysis.summary["surrogate_test"]
+    words = {True: "differs from linear noise", False: "not distinguishable from linear noise"}
+    assert words.get(test["rejects_linear_null"], test.get("reason") or "not run") in page
+
+
 def test_atomic_write(tmp_path, analysis):
     out = write_bundle(analysis, tmp_path / "a.zip")
     assert out.is_file() and not list(tmp_path.glob("*.part"))

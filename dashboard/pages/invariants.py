@@ -12,7 +12,7 @@ import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
 from engine.recording import duration_text
-from engine.summary import STATISTIC_WORDS, format_estimate
+from engine.summary import STATISTIC_WORDS, format_estimate, surrogate_words
 
 from .. import figures
 from ..state import SessionState
@@ -96,11 +96,9 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
     test = summary.get("surrogate_test")
     if test is not None:
         p = test.get("p_value")
-        verdict = {True: "differs from linear noise", False: "not distinguishable from linear noise",
-                   None: test.get("reason") or "not run"}[test.get("rejects_linear_null")]
         rows.append(("Surrogate test p-value", format_estimate(p, digits=2), "",
                      f"{test.get('surrogates')} {str(test.get('kind') or '').upper()} surrogates, "
-                     f"{STATISTIC_WORDS.get(test.get('statistic'), test.get('statistic'))}: {verdict}"))
+                     f"{STATISTIC_WORDS.get(test.get('statistic'), test.get('statistic'))}: {surrogate_words(test)}"))
     rec = summary.get("recurrence")
     if rec:
         if rec.get("radius") is not None:

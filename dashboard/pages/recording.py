@@ -8,6 +8,7 @@ import panel as pn
 import param
 
 from engine.recording import UNSTATED, duration_text, json_attr, sampling_interval, time_unit, variable_name
+from engine.summary import step_text
 
 from .. import figures, style
 from ..server import demo_files
@@ -20,21 +21,6 @@ UNIT_HINT = {"sample": "not given (times are sample numbers): set it under Prepa
              UNSTATED: "{} (the file does not name the unit: set the interval in seconds under Preparation)"}
 FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Interpolate the gaps",
              "detrend": "Remove the straight-line trend"}
-STEP_WORDS = {"set_sampling_interval": "time set from the sampling interval", "fill_gaps": "gaps interpolated",
-              "resample": "resampled onto an even grid", "crop": "cropped", "standardise": "scaled to unit variance",
-              "regularise_time": "time stamps evened out", "detrend none": "nothing removed",
-              "detrend mean": "mean removed", "detrend linear": "straight line removed"}
-
-
-def step_words(step: dict) -> str:
-    """Plain words for one preparation step the engine recorded."""
-    name = step.get("step", "")
-    if name == "detrend":
-        name = f"detrend {step.get('kind', '')}"
-    words = STEP_WORDS.get(name, name.replace("_", " "))
-    return f"{words} (up to {step['max_gap']} samples each)" if name == "fill_gaps" and "max_gap" in step else words
-
-
 class RecordingPage(pn.viewable.Viewer):
     title = "1 · Recording"
     state = param.ClassSelector(class_=SessionState)
@@ -216,7 +202,7 @@ class RecordingPage(pn.viewable.Viewer):
         units = rec[name].attrs.get("units", "1")
         n = rec.sizes["time"]
         dt, unit = sampling_interval(rec), time_unit(rec)
-        steps = [step_words(p) for p in json_attr(rec, "preparation", [])]
+        steps = [step_text(p) for p in json_attr(rec, "preparation", [])]
         rows = [
             ("File", esc(s.source_name or rec.attrs.get("source", ""))),
             ("Variable", f"{esc(name)} ({esc(units) if units not in ('', '1') else 'no unit given'})"),
