@@ -56,12 +56,19 @@ def build_app(demo_path: Path | str | None = None, limits: dict | None = None) -
     state = SessionState(limits=dict(limits or DEFAULT_LIMITS))
     pages = [RecordingPage(state=state), EmbeddingPage(state=state), InvariantsPage(state=state)]
     tabs = pn.Tabs(*[(p.title, p) for p in pages], sizing_mode="stretch_width")
+
+    def show(active: int) -> None:  # a page draws its figures while it is the open tab
+        for i, page in enumerate(pages):
+            page.shown = i == active
+
+    show(tabs.active)
+    tabs.param.watch(lambda event: show(event.new), "active")
     template = pn.template.BootstrapTemplate(
         title="lagspace", sidebar=[BundleTools(state=state), pn.pane.HTML(HELP, margin=(16, 10)),
                                           pn.pane.Alert(CAUTION, alert_type="warning", margin=(8, 10))],
         main=[StatusBar(state=state), tabs], header_background=style.INK, sidebar_width=290,
     )
-    template.session_state = state  # for tests and debugging
+    template.session_state, template.pages = state, pages  # for tests and debugging
     if pn.state.curdoc is not None:  # served: the session's data goes when its browser tab does
         pn.state.on_session_destroyed(lambda context: state.close())
     if demo_path is not None:

@@ -167,3 +167,26 @@ def test_pages_rendered_in_a_document_survive_plots_coming_and_going():
         assert state.diagnostics is None and state.refusals and state.error == ""
         assert state.open_bundle(bundle, "x-lagspace.zip"), state.error         # and come back
         assert state.diagnostics is not None and state.error == ""
+
+
+def test_figures_of_a_page_wait_until_it_is_opened():
+    """A page draws its figures only while it is the open tab (each draw costs the server's event
+    loop, which every session shares); the draws asked for meanwhile happen when it opens."""
+    import systems
+    from dashboard.app import build_app
+
+    app = build_app()
+    tabs, state = app.main[1], app.session_state
+    recording, embedding, invariants = app.pages
+    assert recording.shown and not embedding.shown and not invariants.shown
+    x = systems.lorenz(2000, dt=0.01)
+    assert state.load_bytes("\n".join(f"{v:.9g}" for v in x).encode(), "x.csv") and state.estimate(), state.error
+    assert state.change_settings(surrogates=0) and state.run_analysis(), state.error
+    assert embedding._delay_plot.object is None and invariants._plots["slopes"].object is None
+    assert invariants._table.object  # the numbers are there at once; only figures wait
+    tabs.active = 2
+    assert invariants.shown and not recording.shown
+    assert all(pane.object is not None for pane in invariants._plots.values())
+    assert embedding._delay_plot.object is None
+    tabs.active = 1
+    assert embedding._delay_plot.object is not None and embedding._space_time.object is not None

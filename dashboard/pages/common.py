@@ -62,6 +62,35 @@ def one_per_tick(steps) -> None:
         doc.add_next_tick_callback(next_step)
 
 
+class Page(pn.viewable.Viewer):
+    """A page over the session state whose figures are drawn only while it is shown: the draws
+    asked for while another page is open wait (the latest per figure group) until it opens, so
+    that a session working elsewhere, and every other session on the server, do not pay for
+    figures nobody is looking at."""
+
+    state = param.ClassSelector(class_=SessionState)
+    shown = param.Boolean(default=True, doc="whether the page is the open tab (the app sets it)")
+
+    def __init__(self, **params):
+        super().__init__(**params)
+        self._waiting: dict = {}
+        self.param.watch(self._draw_waiting, "shown")
+
+    def draw(self, group: str, steps) -> None:
+        """Draw ``steps`` (see :func:`one_per_tick`) now if the page is shown, else when it opens;
+        a later call for the same ``group`` replaces draws still waiting."""
+        if self.shown:
+            self._waiting.pop(group, None)
+            one_per_tick(steps)
+        else:
+            self._waiting[group] = list(steps)
+
+    def _draw_waiting(self, *events):
+        if self.shown and self._waiting:
+            waiting, self._waiting = self._waiting, {}
+            one_per_tick(step for steps in waiting.values() for step in steps)
+
+
 async def run(state: SessionState, method, *args, **kwargs):
     """Run a state method off the event loop; returns its result (False on failure)."""
     return await state.in_background(method, *args, **kwargs)

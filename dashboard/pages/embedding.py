@@ -6,13 +6,11 @@ from __future__ import annotations
 import json
 
 import panel as pn
-import param
 
 from engine.recording import json_attr, lag_text, time_unit
 
 from .. import figures
-from ..state import SessionState
-from .common import card, esc, estimate_if_ready, one_per_tick, run
+from .common import Page, card, esc, estimate_if_ready, run
 
 
 def _reason_html(value_text: str, est: dict) -> str:
@@ -29,9 +27,8 @@ def _reason_html(value_text: str, est: dict) -> str:
     return "".join(parts)
 
 
-class EmbeddingPage(pn.viewable.Viewer):
+class EmbeddingPage(Page):
     title = "2 · Delay & dimension"
-    state = param.ClassSelector(class_=SessionState)
 
     def __init__(self, **params):
         super().__init__(**params)
@@ -136,7 +133,7 @@ class EmbeddingPage(pn.viewable.Viewer):
             draws += [lambda: setattr(self._delay_plot, "object", figures.delay_plot(rec, tau)),
                       lambda: _fill_row(self._multiples, figures.delay_multiples(rec, _delay_steps(tau))),
                       self._show_view3d]
-        one_per_tick(self._unless_replaced(draw, diag, rec) for draw in draws)
+        self.draw("estimates", [self._unless_replaced(draw, diag, rec) for draw in draws])
 
     def _unless_replaced(self, draw, diag, rec):
         """``draw``, skipped if newer diagnostics or recording came before its turn."""
@@ -164,9 +161,15 @@ class EmbeddingPage(pn.viewable.Viewer):
         unit = a.summary.get("input", {}).get("time_unit", "sample")
         key = (a.settings, json.dumps(a.summary.get("input"), sort_keys=True), w.get("samples"))
         if key != self._space_time_key:  # refits of other estimates do not redraw this
-            self._space_time.object, self._space_time_key = figures.space_time(a.results, w.get("samples")), key
+            self._space_time_key = key
+            self.draw("space-time", [lambda: self._draw_space_time(a, key)])
         self._space_time_text.object = _reason_html(lag_text(w, unit), w)
         self._theiler_in.placeholder = str(w.get("samples"))
+
+    def _draw_space_time(self, analysis, key) -> None:
+        if self._space_time_key == key:  # no newer analysis came before this turn
+            w = analysis.summary.get("theiler_window") or {}
+            self._space_time.object = figures.space_time(analysis.results, w.get("samples"))
 
     def __panel__(self):
         delay_card = card("Delay", self._delay_text, pn.FlexBox(self._delay_in, self._delay_use, self._delay_back),

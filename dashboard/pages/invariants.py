@@ -8,15 +8,13 @@ from functools import partial
 
 import holoviews as hv
 import panel as pn
-import param
 
 from engine.settings import SURROGATE_KINDS, SURROGATE_STATISTICS
 from engine.recording import duration_text
 from engine.summary import STATISTIC_WORDS, format_estimate, surrogate_words
 
 from .. import figures
-from ..state import SessionState
-from .common import card, esc, number, one_per_tick, run
+from .common import Page, card, esc, number, run
 
 KIND_WORDS = {"iaaft": "IAAFT (spectrum and values kept)", "aaft": "AAFT (amplitude adjusted)",
               "ft": "FT (spectrum kept, Gaussian)"}
@@ -120,9 +118,8 @@ def results_table_html(summary: dict) -> str:
     return f"<table class='results'>{head}{body}</table>"
 
 
-class InvariantsPage(pn.viewable.Viewer):
+class InvariantsPage(Page):
     title = "3 · Invariants"
-    state = param.ClassSelector(class_=SessionState)
 
     def __init__(self, **params):
         super().__init__(**params)
@@ -219,8 +216,8 @@ class InvariantsPage(pn.viewable.Viewer):
         keys = {name: base + tuple(json.dumps(summary.get(p), sort_keys=True) for p in parts)
                 for name, (parts, build) in builders.items()}
         # a refit of one estimate redraws only the figures that show it
-        one_per_tick(partial(self._draw, a, name, keys[name], builders[name][1])
-                     for name in builders if self._drawn.get(name) != keys[name])
+        self.draw("results", [partial(self._draw, a, name, keys[name], builders[name][1])
+                              for name in builders if self._drawn.get(name) != keys[name]])
 
     def _draw(self, analysis, name: str, key: tuple, build) -> None:
         if self.state.analysis is not analysis or self._drawn.get(name) == key:
