@@ -52,11 +52,8 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
         v = _pm(d2)
         rng = d2.get("scaling_range")
         how = d2.get("reason") or ""
-        if rng:
-            how = (f"slope of the correlation sum over radii {number(rng[0], 3)} – {number(rng[1], 3)} "
-                   f"{'' if sig_units in ('', '1') else sig_units}; "
-                   + ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate")
-                   + _then(how))
+        if rng:  # the engine's reason names the dimensions and radii of the fit
+            how = ("saturates with dimension" if d2.get("saturates") else "does NOT clearly saturate") + _then(how)
         rows.append(("Correlation dimension D2", v, "(no unit)", how))
         ml = d2.get("maximum_likelihood")
         if ml:
@@ -78,8 +75,8 @@ def result_rows(summary: dict) -> list[tuple[str, str, str, str]]:
         v = _pm(lle, "per_time_unit")
         fit = lle.get("fit_range")
         how = lle.get("reason") or ""
-        if fit:
-            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}" + _then(how)
+        if fit and not how:  # the engine's reason names the fit range itself
+            how = f"slope of the mean log divergence over steps {fit[0]} – {fit[1]}"
         rows.append(("Largest Lyapunov exponent", v, f"per {unit}", how))
         if unit != "sample" and lle.get("per_sample") is not None:
             v = _pm(lle, "per_sample", "uncertainty_per_sample")
