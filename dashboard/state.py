@@ -34,7 +34,7 @@ from engine import delay as delay_mod
 from engine.checks import check_recording
 from engine.diagnostics import estimate as estimate_diagnostics
 from engine.errors import Cancelled, LagspaceError
-from engine.loading import describe_and_load, load_recording
+from engine.loading import MAX_CHANNELS, describe_and_load, load_recording
 from engine.preparation import prepare
 from engine.recording import json_attr
 from engine.settings import Settings
@@ -76,7 +76,6 @@ def _key(settings: Settings, upto: int) -> tuple:
 
 
 DEFAULT_LIMITS = {"max_bytes": 200_000_000, "max_samples": 10_000_000}
-MAX_CHOICES = 200  # channels a file may offer for the user to choose one from a list
 BUNDLE_INFLATION = 10  # a bundle may inflate to this many times the upload limit (results beside the data)
 
 
@@ -253,9 +252,9 @@ class SessionState(param.Parameterized):
         def work(progress, cancel):
             options = dict(variable=variable, time_column=time_column)
             info, rec = describe_and_load(data, name=name, **options, **self.limits)
-            if rec is None and len(info["variables"]) > MAX_CHOICES:
+            if rec is None and len(info["variables"]) > MAX_CHANNELS:
                 raise LagspaceError(f"{name} holds {len(info['variables'])} channels, too many to choose from here "
-                                    f"(at most {MAX_CHOICES}): save the channel you want in a file of its own, "
+                                    f"(at most {MAX_CHANNELS}): save the channel you want in a file of its own, "
                                     "or use `lagspace analyze --variable N`")
             if rec is None:
                 self._data = data

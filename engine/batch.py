@@ -1,6 +1,6 @@
 """``lagspace batch``: many recordings with the same settings, on dask.distributed.
 
-One task per input (and per variable of a multi-variable NetCDF). Workers return
+One task per input (and per channel of a file that holds several). Workers return
 the bundle as bytes and one table row; the client writes every bundle atomically
 into ``--out`` and the table as ``summary.csv`` and ``summary.nc``. A failing input
 fills its row with the error and does not stop the others.
@@ -23,9 +23,10 @@ TABLE_COLUMNS = [
 
 
 def plan_tasks(inputs, variable=None) -> list:
-    """``(path, variable)`` pairs: one per input, or one per 1-D variable of a NetCDF file."""
+    """``(path, variable)`` pairs: one per input, or one per channel of a file holding several
+    (up to MAX_CHANNELS; a file with more is one task, whose row says how to pick a channel)."""
     from .bundle import is_bundle
-    from .loading import describe_source
+    from .loading import MAX_CHANNELS, describe_source
 
     tasks = []
     for name in inputs:
@@ -37,7 +38,7 @@ def plan_tasks(inputs, variable=None) -> list:
                 info = describe_source(path)
             except LagspaceError:
                 info = {}  # the task itself reports the problem in its row
-            if info.get("format") == "netcdf" and len(info.get("variables", [])) > 1:
+            if 1 < len(info.get("variables", [])) <= MAX_CHANNELS:
                 tasks += [(str(path), v) for v in info["variables"]]
                 continue
         tasks.append((str(path), variable))

@@ -67,6 +67,7 @@ _DATE_RE = re.compile(r"[\d\-/:. TZ+]*\d[\-/:][\d\-/:. TZ+]*"
                       r"|\d{1,2}\.\d{1,2}\.\d{2,4}(?:[ T][\d:.]+)?")  # or 31.01.2024 (day first)
 _WS_HEADER_RE = re.compile(r"[^\s\[\(]+(?:\s*[\[\(][^\[\(\]\)]*[\]\)])?|[\[\(][^\[\(\]\)]*[\]\)]")  # linear: no nesting
 MAX_LINE = 100_000  # characters in one line of a text file
+MAX_CHANNELS = 200  # channels of one file offered one by one (a choice in the dashboard, a task in batch)
 MAX_COLUMNS = 1000  # columns of a text file
 NETCDF4_TIMEOUT = 60.0  # seconds a NetCDF4 file may take to read
 

@@ -88,3 +88,22 @@ def test_separate_scheduler(inputs, tmp_path):
         for p in reversed(procs):
             p.terminate()
             p.wait(timeout=30)
+
+
+def test_files_with_several_channels_fan_out_one_task_per_channel(tmp_path):
+    from scipy.io import wavfile
+
+    from engine.batch import plan_tasks
+    from engine.loading import MAX_CHANNELS
+
+    x = systems.henon(600)
+    wavfile.write(tmp_path / "pair.wav", 1000, np.c_[x, -x].astype(np.float32))  # scipy writes the channels
+    wavfile.write(tmp_path / "crowd.wav", 1000, np.tile(x[:100, None], MAX_CHANNELS + 1).astype(np.float32))
+    (tmp_path / "two.csv").write_text("time_s,a,b\n" + "".join(f"{0.1 * i:.1f},{v:.6f},{2 * v:.6f}\n"
+                                                                for i, v in enumerate(x)))
+    np.savetxt(tmp_path / "one.csv", x)
+    tasks = plan_tasks([tmp_path / n for n in ("pair.wav", "two.csv", "one.csv", "crowd.wav")])
+    assert tasks == [(str(tmp_path / "pair.wav"), "channel_0"), (str(tmp_path / "pair.wav"), "channel_1"),
+                     (str(tmp_path / "two.csv"), "a"), (str(tmp_path / "two.csv"), "b"),
+                     (str(tmp_path / "one.csv"), None), (str(tmp_path / "crowd.wav"), None)]
+    assert plan_tasks([tmp_path / "pair.wav"], variable="channel_1") == [(str(tmp_path / "pair.wav"), "channel_1")]
