@@ -141,7 +141,7 @@ def main(argv=None) -> int:
             return _serve(args)
         return _warnings_after({"analyze": _analyze, "batch": _batch}[args.command], args)
     except BrokenPipeError:  # the reader went away (`lagspace analyze f | head`): nothing more to say
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())  # as the Python docs' signal module note does
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())  # as the signal module's docs advise
         return 1
     except _UsageError as exc:
         print(f"error: {_one_line(exc)}; see `lagspace {_command(argv)}--help`", file=sys.stderr)

@@ -331,7 +331,8 @@ def _choose(contents: _Contents, variable) -> _Series:
     listing = _listing([f"{i}: {_quoted(s.name)}" for i, s in series])
     if variable is None:
         if len(series) > 1:
-            raise RecordingError(f"the file has {len(series)} channels; choose one by name or index (--variable on the command line): {listing}")
+            raise RecordingError(f"the file has {len(series)} channels; choose one by name or index "
+                                 f"(--variable on the command line): {listing}")
         return series[0][1]
     if isinstance(variable, (int, np.integer)) and not isinstance(variable, bool):
         for i, s in series:

@@ -21,6 +21,8 @@ UNIT_HINT = {"sample": "not given (times are sample numbers): set it under Prepa
              UNSTATED: "{} (the file does not name the unit: set the interval in seconds under Preparation)"}
 FIX_WORDS = {"resample": "Resample onto an even grid", "fill_gaps": "Interpolate the gaps",
              "detrend": "Remove the straight-line trend"}
+
+
 class RecordingPage(pn.viewable.Viewer):
     title = "1 · Recording"
     state = param.ClassSelector(class_=SessionState)
@@ -187,7 +189,7 @@ class RecordingPage(pn.viewable.Viewer):
             return
         lo, hi = float(inside[0]), float(inside[-1])
         self._crop_start.value, self._crop_stop.value = lo, hi
-        self._crop_hint.object = (f"<small><b>Selected {lo:g} to {hi:g}.</b> Press Apply preparation to keep only "
+        self._crop_hint.object = (f"<small><b>Selected {lo:.10g} to {hi:.10g}.</b> Press Apply preparation to keep only "
                                   "this stretch, or clear the fields to keep everything.</small>")
 
     def _show_spectrum(self, *events):
