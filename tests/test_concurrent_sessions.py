@@ -31,7 +31,7 @@ def test_four_sessions_at_once_all_get_the_same_results_and_keep_answering(capsy
     found = load_bench.measure(sessions=4, surrogates=19, browser_nice=19, budget=BUDGET)
     with capsys.disabled():
         load_bench.report(found)
-    assert not [e for s in found for e in s.errors]
+    assert not [e for s in found for e in s.errors], load_bench.problems(found)
     d2 = [s.d2 for s in found]
     assert all(d and d != "n/a" for d in d2) and len(set(d2)) == 1, d2
     assert all(s.loaded for s in found), "a page got no answer while the analyses ran"

@@ -148,7 +148,12 @@ class EmbeddingPage(Page):
         """A slider step turns the drawn view in place (new points, same plot): cheap for the server."""
         rec, tau = self.state.prepared, self._delay()
         if rec is not None and tau and self._view3d.object is not None:
-            figures.turn_view(self._view3d.object, rec, tau, azimuth=self._turn.value, elevation=self._tilt.value)
+            # through Panel's hold, so that this change is written after any message still queued for
+            # the socket (such as the one that brought this view): written directly, as a slider's
+            # watcher otherwise is, it could overtake it and the browser would meet a model it lacks
+            with pn.io.hold():
+                figures.turn_view(self._view3d.object, rec, tau, azimuth=self._turn.value,
+                                  elevation=self._tilt.value)
 
     def _show_space_time(self, *events):
         a = self.state.analysis

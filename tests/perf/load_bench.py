@@ -133,7 +133,8 @@ async def prepare(page, url: str, recording: Path, surrogates: Optional[int], se
     """Open the page, upload, accept the suggestions, measure idle actions, go to page 3."""
     start = time.monotonic()
     page.on("websocket", session.watch)
-    page.on("pageerror", lambda e: session.errors.append(f"page error: {e.name}: {e.message} {(e.stack or '')[:300]}"))
+    page.on("pageerror", lambda e: session.errors.append(f"page error {_when(time.monotonic())}: {e.name}: "
+                                                         f"{e.message} {(e.stack or '')[:300]}"))
     await page.goto(url)
     await page.get_by_text("1 · Recording").first.wait_for(timeout=60_000)
     await page.locator("input.filepond--browser").set_input_files(str(recording))
