@@ -124,7 +124,8 @@ def time_series(rec: xr.Dataset, max_points: int = MAX_LINE_POINTS) -> hv.Curve:
     t, x = envelope(rec["time"].values, signal(rec), max_points)
     n = rec.sizes["time"]
     title = f"{variable_name(rec)}: {n:,} samples" + ("" if n <= max_points else ", envelope drawn")
-    return hv.Curve((t, x), kdims=[hv.Dimension("time", label=TIME_LABELS.get(time_unit(rec), f"time ({time_unit(rec)})"))],
+    unit = time_unit(rec)
+    return hv.Curve((t, x), kdims=[hv.Dimension("time", label=TIME_LABELS.get(unit, f"time ({unit})"))],
                     vdims=[hv.Dimension("value", label=_signal_label(rec))]).opts(
         color=style.INK, line_width=1, title=title, tools=["hover", "xwheel_zoom", "xbox_select"],
         active_tools=["xbox_select"], **style.PLOT)

@@ -358,8 +358,8 @@ class SessionState(param.Parameterized):
 
         Uneven sampling is fixed by resampling, a straight-line trend by removing it, missing
         values by interpolation when the check found them fillable (every run inside the series
-        and short, see ``engine.checks``), raising ``max_gap`` where a run needs it. Other findings are fixed by hand (crop, another channel, a new
-        recording), as their text says.
+        and short, see ``engine.checks``), raising ``max_gap`` where a run needs it. Other findings
+        are fixed by hand (crop, another channel, a new recording), as their text says.
         """
         settings = settings or self.settings
         details = finding.get("details") or {}

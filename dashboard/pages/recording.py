@@ -189,8 +189,8 @@ class RecordingPage(pn.viewable.Viewer):
             return
         lo, hi = float(inside[0]), float(inside[-1])
         self._crop_start.value, self._crop_stop.value = lo, hi
-        self._crop_hint.object = (f"<small><b>Selected {lo:.10g} to {hi:.10g}.</b> Press Apply preparation to keep only "
-                                  "this stretch, or clear the fields to keep everything.</small>")
+        self._crop_hint.object = (f"<small><b>Selected {lo:.10g} to {hi:.10g}.</b> Press Apply preparation to "
+                                  "keep only this stretch, or clear the fields to keep everything.</small>")
 
     def _show_spectrum(self, *events):
         rec = self.state.prepared
